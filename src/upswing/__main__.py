@@ -1,0 +1,5 @@
+"""Allow ``python -m upswing``."""
+
+from upswing.cli import main
+
+raise SystemExit(main())

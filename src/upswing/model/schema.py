@@ -1,0 +1,202 @@
+"""Every rig-file key in one table: its type, unit, accepted range, default and meaning.
+
+The loader (:mod:`upswing.model.rig`), the rig-file reference in ``docs/rig-file.md`` and the bad-input tests are
+all generated from :data:`TABLES`, so the three cannot drift apart. To add a key, add one :class:`Key` here; to add
+a table, add one :class:`Table` and teach :mod:`upswing.model.rig` what to build from it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+REQUIRED: Any = object()  # sentinel: the key has no default and must be given
+
+
+@dataclass(frozen=True)
+class Key:
+    """One rig-file key.
+
+    Attributes
+    ----------
+    name : str
+        Key name inside its table.
+    kind : str
+        ``"float"``, ``"int"``, ``"str"``, ``"bool"``, ``"floats"`` (a list of numbers) or ``"strs"``.
+    unit : str
+        SI unit, or ``"-"`` for dimensionless / text.
+    doc : str
+        One-line meaning, as the rig-file reference prints it.
+    default : Any
+        Value when the key is absent; :data:`REQUIRED` when it must be given; ``None`` when absent means "not given"
+        (the loader then derives a value, as for ``inertia``).
+    low, high : float or None
+        Accepted range ends; ``None`` means unbounded on that side.
+    low_open, high_open : bool
+        Whether the corresponding end is excluded.
+    choices : tuple of str or None
+        Accepted values for ``str`` and ``strs`` keys.
+    plausible : tuple of float or None
+        Range that a bench rig normally lies in; a value outside it is accepted with a warning.
+    """
+
+    name: str
+    kind: str
+    unit: str
+    doc: str
+    default: Any = REQUIRED
+    low: float | None = None
+    high: float | None = None
+    low_open: bool = False
+    high_open: bool = False
+    choices: tuple[str, ...] | None = None
+    plausible: tuple[float, float] | None = None
+
+    def range_text(self) -> str:
+        """Accepted range in interval notation, e.g. ``(0, inf)``."""
+        if self.choices is not None:
+            return "one of " + ", ".join(f'"{c}"' for c in self.choices)
+        lo = "-inf" if self.low is None else _fmt(self.low)
+        hi = "inf" if self.high is None else _fmt(self.high)
+        left = "(" if (self.low is None or self.low_open) else "["
+        right = ")" if (self.high is None or self.high_open) else "]"
+        return f"{left}{lo}, {hi}{right}"
+
+    def in_range(self, value: float) -> bool:
+        """Whether a finite number lies in the accepted range."""
+        if self.low is not None and (value < self.low or (self.low_open and value == self.low)):
+            return False
+        return not (
+            self.high is not None and (value > self.high or (self.high_open and value == self.high))
+        )
+
+
+@dataclass(frozen=True)
+class Table:
+    """A rig-file table (``""`` for the top level) and the keys it accepts."""
+
+    name: str
+    doc: str
+    keys: tuple[Key, ...]
+
+    def key(self, name: str) -> Key:
+        for k in self.keys:
+            if k.name == name:
+                return k
+        raise KeyError(name)
+
+
+def _fmt(x: float) -> str:
+    return "inf" if math.isinf(x) else f"{x:g}"
+
+
+JOINTS = ("cart", "shoulder", "elbow")
+BASES = ("fixed", "cart")
+
+TOP = Table(
+    "",
+    "Top level: what the rig is.",
+    (
+        Key("name", "str", "-", "Free text naming the rig."),
+        Key("base", "str", "-", "What link 1's pivot sits on.", choices=BASES),
+        Key("actuated", "strs", "-", "Joints that have a motor.", choices=JOINTS),
+        Key("gravity", "float", "m/s^2", "Gravitational acceleration (CGPM standard value by default).",
+            default=9.80665, low=0.0, low_open=True, plausible=(9.7, 9.9)),
+        Key("description", "str", "-", "Longer free text: what the rig represents.", default=""),
+    ),
+)
+
+LINK = Table(
+    "link1",  # the same keys serve link1 and link2
+    "A link: a rigid body turning about its proximal joint.",
+    (
+        Key("mass", "float", "kg", "Link mass.", low=0.0, low_open=True, plausible=(0.005, 50.0)),
+        Key("length", "float", "m", "Joint to joint (link 2: joint to tip).", low=0.0, low_open=True,
+            plausible=(0.02, 3.0)),
+        Key("com", "float", "m", "Distance from the link's proximal joint to its centre of mass; 0 < com <= length.",
+            low=0.0, low_open=True),
+        Key("inertia", "float", "kg m^2", "Moment of inertia about the link's own centre of mass "
+            "(default: uniform rod, mass * length^2 / 12).", default=None, low=0.0),
+        Key("damping", "float", "N m s/rad", "Viscous friction at the link's proximal joint.", default=0.0,
+            low=0.0),
+        Key("coulomb", "float", "N m", "Coulomb (dry) friction at the link's proximal joint.", default=0.0,
+            low=0.0),
+    ),
+)
+
+CART = Table(
+    "cart",
+    "The cart on its rail; required when base = \"cart\", an error on a fixed base.",
+    (
+        Key("mass", "float", "kg", "Cart mass (everything that translates but the links).", low=0.0,
+            low_open=True, plausible=(0.05, 100.0)),
+        Key("damping", "float", "N s/m", "Viscous friction along the rail.", default=0.0, low=0.0),
+        Key("coulomb", "float", "N", "Coulomb friction along the rail.", default=0.0, low=0.0),
+        Key("travel", "float", "m", "Half-length of usable rail from its centre; |x| = travel is the end stop.",
+            low=0.0, low_open=True, plausible=(0.02, 5.0)),
+    ),
+)
+
+ACTUATOR = Table(
+    "actuator.<joint>",
+    "One table per actuated joint (cart, shoulder, elbow). Units: N m and rad/s for joints, N and m/s for the cart.",
+    (
+        Key("peak", "float", "N m | N", "Saturation: |u| <= peak, never exceeded.", low=0.0, low_open=True),
+        Key("continuous", "float", "N m | N", "RMS of the input over a manoeuvre must stay below this.",
+            low=0.0, low_open=True),
+        Key("max_speed", "float", "rad/s | m/s", "Joint (cart) speed budget.", low=0.0, low_open=True),
+        Key("stall", "float", "N m | N", "Motor line: effort available at standstill; with no_load_speed the "
+            "effort available while driving at speed w is min(peak, stall * (1 - w / no_load_speed)).",
+            default=None, low=0.0, low_open=True),
+        Key("no_load_speed", "float", "rad/s | m/s", "Motor line: speed at which the available driving effort "
+            "reaches zero.", default=None, low=0.0, low_open=True),
+    ),
+)
+
+BALANCE = Table(
+    "balance",
+    "Balance controller at the upright. Without q and r, weights follow Bryson's rule (see docs/theory.md).",
+    (
+        Key("q", "floats", "-", "State weights, one per state in state order.", default=None, low=0.0),
+        Key("r", "floats", "-", "Input weights, one per input in input order (cart, shoulder, elbow).",
+            default=None, low=0.0, low_open=True),
+        Key("sample_rate", "float", "Hz", "The controller's loop rate.", default=500.0, low=0.0, low_open=True,
+            plausible=(20.0, 20000.0)),
+        Key("delay_samples", "int", "samples", "Computation delay designed in: u[k] is applied d samples late.",
+            default=0, low=0, high=10),
+    ),
+)
+
+SENSORS = Table(
+    "sensors",
+    "What the controller measures. Angles and cart position come from encoders; velocities are estimated.",
+    (
+        Key("encoder_counts", "int", "counts/rev", "Angle encoder counts per revolution (after quadrature).",
+            default=4096, low=4),
+        Key("cart_resolution", "float", "m", "Cart position resolution (one count).", default=1e-5, low=0.0,
+            low_open=True),
+        Key("angle_noise", "float", "rad", "Standard deviation of Gaussian noise on each angle reading.",
+            default=0.0, low=0.0),
+        Key("cart_noise", "float", "m", "Standard deviation of Gaussian noise on the cart position reading.",
+            default=0.0, low=0.0),
+    ),
+)
+
+UNCERTAINTY = Table(
+    "uncertainty",
+    "How well the parameters are known. Sub-tables [uncertainty.link1], [uncertainty.link2], [uncertainty.cart] "
+    "give a relative spread per key (0.1 = +-10 %); `distribution` says how spreads are read.",
+    (
+        Key("distribution", "str", "-", "\"uniform\": spread is the half-width; \"normal\": spread is one "
+            "standard deviation (truncated at 3 sigma).", default="uniform", choices=("uniform", "normal")),
+        Key("gravity", "float", "-", "Relative spread of gravity.", default=0.0, low=0.0, high=0.5),
+    ),
+)
+
+UNCERTAIN_PARAMETER = Key(
+    "<parameter>", "float", "-", "Relative spread of that parameter (fraction, e.g. 0.1 = 10 %).", default=0.0,
+    low=0.0, high=0.9,
+)
+
+TABLES: tuple[Table, ...] = (TOP, LINK, CART, ACTUATOR, BALANCE, SENSORS, UNCERTAINTY)

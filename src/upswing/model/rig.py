@@ -19,7 +19,7 @@ import numpy as np
 
 from upswing.errors import RigFileError
 from upswing.model import schema
-from upswing.model.schema import REQUIRED, JOINTS, Key, Table
+from upswing.model.schema import JOINTS, REQUIRED, Key, Table
 
 # Order of the physical parameter vector p that the equations of motion take: f(x, u, p).
 PARAMETER_NAMES: tuple[str, ...] = (
@@ -404,8 +404,8 @@ class _Loader:
         for joint in actuated:
             given = self.sub_table(group, joint, "actuator", required=False)
             if given is None:
-                raise self.fail(f"actuator.{joint}", f"is missing; every actuated joint needs its limits "
-                                                     f"(peak, continuous, max_speed)")
+                raise self.fail(f"actuator.{joint}", "is missing; every actuated joint needs its limits "
+                                                     "(peak, continuous, max_speed)")
             values = self.read(given, schema.ACTUATOR, f"actuator.{joint}")
             if values["continuous"] > values["peak"]:
                 raise self.fail(f"actuator.{joint}.continuous",

@@ -29,8 +29,7 @@ class RigFileError(UpswingError, ValueError):
         self.source = source
         self.key = key
         self.problem = problem
-        where = f"{source}: {key}" if key else source
-        super().__init__(f"{where}: {problem}")
+        super().__init__(f"{source}: {key} {problem}" if key else f"{source}: {problem}")
 
 
 class RequestError(UpswingError, ValueError):

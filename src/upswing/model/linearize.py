@@ -42,7 +42,7 @@ class LinearModel:
     @property
     def eigenvalues(self) -> np.ndarray:
         """Eigenvalues of A [1/s], sorted by real part, largest first."""
-        eig = np.linalg.eigvals(self.A)
+        eig = np.linalg.eigvals(self.A).astype(complex)
         return eig[np.lexsort((eig.imag, -eig.real))]
 
 

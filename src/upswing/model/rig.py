@@ -411,7 +411,7 @@ class _Loader:
                 raise self.fail(f"actuator.{joint}.continuous",
                                 f"must be in (0, peak] = (0, {values['peak']:g}]; got {values['continuous']:g}")
             if (values["stall"] is None) != (values["no_load_speed"] is None):
-                raise self.fail(f"actuator.{joint}", "a motor line needs both stall and no_load_speed")
+                raise self.fail(f"actuator.{joint}", "needs both stall and no_load_speed for a motor line, or neither")
             result.append(Actuator(joint=joint, **values))
         return tuple(result)
 
@@ -422,7 +422,7 @@ class _Loader:
                 raise self.fail(f"balance.{name}", f"must have one weight per {what[:-1]} ({expected} {what}); "
                                                    f"got {len(values[name])}")
         if (values["q"] is None) != (values["r"] is None):
-            raise self.fail("balance", "give both q and r, or neither (Bryson's rule then picks both)")
+            raise self.fail("balance", "needs both q and r, or neither (Bryson's rule then picks both)")
         return Balance(**values)
 
     def uncertainty(self, table: dict[str, Any], base: str) -> Uncertainty:

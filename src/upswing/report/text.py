@@ -51,8 +51,9 @@ def check_text(rig: Rig, derived: DerivedQuantities) -> str:
     out = [f"{rig.name}  ({rig.source})", "", table(rows, ["quantity", "value", "unit"])]
     if rig.warnings:
         out += ["", "Warnings:", *[f"  - {w}" for w in rig.warnings]]
-    out += ["", f"Keep-out: stay at least {keep_out_radius(rig):.2f} m from the shoulder axis "
-                f"({'and from the rail ends ' if rig.cart else ''}while the drive is enabled).",
+    origin = "the rail's centre (links reach past the rail ends)" if rig.cart else "the shoulder axis"
+    out += ["", f"Keep-out: stay at least {keep_out_radius(rig):.2f} m from {origin} while the drive is enabled "
+                "(reach plus 0.5 m; lay out guards per ISO 13857).",
             "", cautions_text()]
     return "\n".join(out)
 

@@ -84,7 +84,9 @@ def test_reference_documents_every_table_and_key() -> None:
 # Rig files the docs point to
 
 
-@pytest.mark.parametrize("path", sorted((ROOT / "scenarios").glob("*.toml")), ids=lambda p: p.name)
+@pytest.mark.parametrize("path", sorted((ROOT / "scenarios").glob("*.toml"))
+                         + sorted((ROOT / "src" / "upswing" / "demo").glob("*.toml")),
+                         ids=lambda p: f"{p.parent.name}/{p.name}")
 def test_every_scenario_loads_without_warnings(path: Path) -> None:
     rig = load_rig(path)
     assert rig.warnings == (), f"{path.name} is a demo rig of plausible bench size; warnings: {rig.warnings}"

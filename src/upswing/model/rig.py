@@ -347,8 +347,7 @@ class _Loader:
     # -- the rig ---------------------------------------------------------------------------------------------------
 
     def build(self, table: dict[str, Any]) -> Rig:
-        tables = ["link1", "link2", "cart", "actuator", "balance", "sensors", "uncertainty"]
-        self.check_names(table, [k.name for k in schema.TOP.keys] + tables, "")
+        self.check_names(table, [k.name for k in schema.TOP.keys] + list(schema.TOP_LEVEL_TABLES), "")
         top = {k.name: self.value(table, k, "") for k in schema.TOP.keys}
         base = top["base"]
         actuated = tuple(j for j in JOINTS if j in top["actuated"])  # canonical order: cart, shoulder, elbow
@@ -450,10 +449,12 @@ class _Loader:
 
 def _describe(key: Key) -> str:
     kinds = {"float": "a number", "int": "an integer", "str": "text", "floats": "a list of numbers",
-             "strs": "a list of text", "bool": "true or false"}
+             "strs": "a list of text"}
     unit = "" if key.unit == "-" else f" {key.unit}"
     if key.choices is not None:
         return f"{kinds[key.kind]}, {key.range_text()}"
+    if key.kind == "str":
+        return f"text ({key.doc})"
     return f"{kinds[key.kind]} in {key.range_text()}{unit} ({key.doc})"
 
 

@@ -23,7 +23,7 @@ class Key:
     name : str
         Key name inside its table.
     kind : str
-        ``"float"``, ``"int"``, ``"str"``, ``"bool"``, ``"floats"`` (a list of numbers) or ``"strs"``.
+        ``"float"``, ``"int"``, ``"str"``, ``"floats"`` (a list of numbers) or ``"strs"`` (a list of text).
     unit : str
         SI unit, or ``"-"`` for dimensionless / text.
     doc : str
@@ -200,3 +200,6 @@ UNCERTAIN_PARAMETER = Key(
 )
 
 TABLES: tuple[Table, ...] = (TOP, LINK, CART, ACTUATOR, BALANCE, SENSORS, UNCERTAINTY)
+
+# Table names a rig file may have at its top level (LINK serves both links; ACTUATOR has one sub-table per joint).
+TOP_LEVEL_TABLES: tuple[str, ...] = ("link1", "link2", "cart", "actuator", "balance", "sensors", "uncertainty")

@@ -1,4 +1,4 @@
-"""Readable terminal text for the analysis commands (the JSON forms live beside each command in cli.py)."""
+"""Readable terminal text for the analysis commands (the JSON forms live in each module of upswing.commands)."""
 
 from __future__ import annotations
 
@@ -42,9 +42,10 @@ def check_text(rig: Rig, derived: DerivedQuantities) -> str:
         ["inertia about the pivot (straight)", f"{derived.inertia_about_pivot:.4g}", "kg m^2"],
         ["tip reach", f"{derived.reach:.4g}", "m"],
         ["swept-circle radius", f"{derived.swept_radius:.4g}", "m"],
-        ["reachable half-width from rail centre", f"{derived.keep_out_half_width:.4g}", "m"],
         ["gravity torque at shoulder, links horizontal", f"{derived.holding_torque:.4g}", "N m"],
     ]
+    if rig.cart is not None:
+        rows.append(["reachable half-width from rail centre", f"{derived.keep_out_half_width:.4g}", "m"])
     for a in rig.actuators:
         unit = "N" if a.joint == "cart" else "N m"
         rows.append([f"{a.joint} peak / continuous", f"{a.peak:g} / {a.continuous:g}", unit])

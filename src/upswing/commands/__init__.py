@@ -3,6 +3,6 @@
 
 from __future__ import annotations
 
-from upswing.commands import check, modes
+from upswing.commands import balance, check, modes
 
-COMMANDS = (check, modes)
+COMMANDS = (check, modes, balance)

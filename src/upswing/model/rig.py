@@ -79,12 +79,16 @@ class Actuator:
 
 @dataclass(frozen=True)
 class Balance:
-    """Balance design settings: LQR weights (``None`` means Bryson's rule), loop rate [Hz], delay [samples]."""
+    """Balance design settings: LQR weights (``None`` means Bryson's rule), loop rate [Hz], delay [samples], and
+    the estimators' tuning: process noise [rad/s^2, m/s^2 for the cart] and the velocity filter's cut-off [Hz]."""
 
     q: tuple[float, ...] | None
     r: tuple[float, ...] | None
     sample_rate: float
     delay_samples: int
+    process_noise: float = schema.BALANCE.key("process_noise").default
+    cart_process_noise: float = schema.BALANCE.key("cart_process_noise").default
+    velocity_cutoff: float | None = None  # None: sample_rate / 10 (upswing.synthesis.estimation)
 
 
 @dataclass(frozen=True)
@@ -415,13 +419,20 @@ class _Loader:
         return tuple(result)
 
     def balance(self, table: dict[str, Any], n_states: int, n_inputs: int) -> Balance:
-        values = self.read(self.sub_table(table, "balance", "", False) or {}, schema.BALANCE, "balance")
+        given = self.sub_table(table, "balance", "", False) or {}
+        values = self.read(given, schema.BALANCE, "balance")
+        if "cart_process_noise" in given and n_states == len(STATE_NAMES["fixed"]):
+            raise self.fail("balance.cart_process_noise", 'is given but base = "fixed" has no cart; remove it')
         for name, expected, what in (("q", n_states, "states"), ("r", n_inputs, "inputs")):
             if values[name] is not None and len(values[name]) != expected:
                 raise self.fail(f"balance.{name}", f"must have one weight per {what[:-1]} ({expected} {what}); "
                                                    f"got {len(values[name])}")
         if (values["q"] is None) != (values["r"] is None):
             raise self.fail("balance", "needs both q and r, or neither (Bryson's rule then picks both)")
+        cutoff = values["velocity_cutoff"]
+        if cutoff is not None and cutoff >= values["sample_rate"] / 2.0:
+            raise self.fail("balance.velocity_cutoff", f"must be below half the loop rate, (0, "
+                                                       f"{values['sample_rate'] / 2.0:g}) Hz; got {cutoff:g}")
         return Balance(**values)
 
     def uncertainty(self, table: dict[str, Any], base: str) -> Uncertainty:

@@ -165,6 +165,14 @@ BALANCE = Table(
             plausible=(20.0, 20000.0)),
         Key("delay_samples", "int", "samples", "Computation delay designed in: u[k] is applied d samples late.",
             default=0, low=0, high=10),
+        Key("process_noise", "float", "rad/s^2", "Kalman filter tuning: standard deviation of the unmodelled "
+            "angular acceleration of each joint, held over one sample (friction, model error, bumps).",
+            default=5.0, low=0.0, low_open=True, plausible=(0.01, 1000.0)),
+        Key("cart_process_noise", "float", "m/s^2", "Kalman filter tuning: the same for the cart's acceleration "
+            "(cart rigs only).", default=1.0, low=0.0, low_open=True, plausible=(0.001, 100.0)),
+        Key("velocity_cutoff", "float", "Hz", "Cut-off of the first-order low-pass on the finite-difference "
+            "velocity estimate; must be below half the loop rate (default: sample_rate / 10).", default=None,
+            low=0.0, low_open=True),
     ),
 )
 

@@ -44,7 +44,11 @@ def test_json_contract(tmp_path, capsys):
     assert data["sample_rate"] == 1000.0
     assert data["state"] == ["theta1", "theta2", "theta1_dot", "theta2_dot"] and data["inputs"] == ["shoulder"]
     assert data["units"]["state"] == ["rad", "rad", "rad/s", "rad/s"] and data["units"]["closed_loop_poles"] == "1/s"
-    assert all(len(p) == 2 for p in data["closed_loop_poles"])  # complex numbers as [re, im]
+    # Complex numbers as [re, im], also when every pole happens to be real (the finite-difference estimator's).
+    for poles in (data["closed_loop_poles"], data["closed_loop_poles_discrete"], data["unstable_poles"],
+                  data["estimators"]["kalman"]["poles"], data["estimators"]["finite_difference"]["poles"],
+                  data["estimators"]["finite_difference"]["closed_loop_poles"]):
+        assert poles and all(isinstance(p, list) and len(p) == 2 for p in poles)
     assert set(data["margins"]) == {"continuous", "discrete", "discrete_kalman", "discrete_finite_difference"}
     loop = data["margins"]["discrete_kalman"]["shoulder"]
     for key in ("gain_margin", "phase_margin_deg", "delay_margin_s", "delay_margin_samples", "disk_margin"):

@@ -238,7 +238,7 @@ def continuous_lqr(A: np.ndarray, B: np.ndarray, Q: np.ndarray, R: np.ndarray) -
     if residual1 < residual:
         P, residual = P1, residual1
         K = np.linalg.solve(R, B.T @ P)
-    return RiccatiSolution(K=K, P=P, poles=np.linalg.eigvals(A - B @ K), residual=residual)
+    return RiccatiSolution(K=K, P=P, poles=np.linalg.eigvals(A - B @ K).astype(complex), residual=residual)
 
 
 def discrete_lqr(Ad: np.ndarray, Bd: np.ndarray, Q: np.ndarray, R: np.ndarray) -> RiccatiSolution:
@@ -258,7 +258,7 @@ def discrete_lqr(Ad: np.ndarray, Bd: np.ndarray, Q: np.ndarray, R: np.ndarray) -
     if residual1 < residual:
         P, residual = P1, residual1
         K = np.linalg.solve(R + Bd.T @ P @ Bd, Bd.T @ P @ Ad)
-    return RiccatiSolution(K=K, P=P, poles=np.linalg.eigvals(Ad - Bd @ K), residual=residual)
+    return RiccatiSolution(K=K, P=P, poles=np.linalg.eigvals(Ad - Bd @ K).astype(complex), residual=residual)
 
 
 # ----------------------------------------------------------------------------------------------------------------
@@ -359,7 +359,7 @@ def design_balance(rig: Rig, *, sample_rate: float | None = None, delay_samples:
     Q, R, source = balance_weights(rig)
     A, B = lin.A, lin.B
     _check_weights_see_unstable_modes(rig, A, Q, source)
-    eig_A = np.linalg.eigvals(A)
+    eig_A = np.linalg.eigvals(A).astype(complex)
     unstable = eig_A[eig_A.real > 1e-9]
     try:
         cont = continuous_lqr(A, B, Q, R)

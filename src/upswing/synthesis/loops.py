@@ -45,7 +45,7 @@ class LinearSystem:
     @property
     def poles(self) -> np.ndarray:
         """Eigenvalues of A [1/s when continuous, dimensionless when discrete]."""
-        return np.linalg.eigvals(self.A) if self.A.size else np.zeros(0, dtype=complex)
+        return np.linalg.eigvals(self.A).astype(complex) if self.A.size else np.zeros(0, dtype=complex)
 
     def frequency_response(self, omega: np.ndarray) -> np.ndarray:
         """G(s) = C (sI - A)^-1 B + D at s = j omega (continuous) or z = e^(j omega dt) (discrete).
@@ -64,8 +64,14 @@ class LinearSystem:
         n = self.A.shape[0]
         if n == 0:
             return np.broadcast_to(self.D.astype(complex), (omega.size, *self.D.shape)).copy()
-        M = s[:, None, None] * np.eye(n) - self.A  # (N, n, n)
-        X = np.linalg.solve(M, np.broadcast_to(self.B.astype(complex), (omega.size, *self.B.shape)))
+        B = np.broadcast_to(self.B.astype(complex), (omega.size, *self.B.shape))
+        try:
+            X = np.linalg.solve(s[:, None, None] * np.eye(n) - self.A, B)
+        except np.linalg.LinAlgError:
+            # A grid frequency sits exactly on a pole on the axis (an undamped mode): step off it by 1e-9 relative,
+            # far below any feature the margins resolve.
+            s = 1j * omega * (1 + 1e-9) if self.dt is None else np.exp(1j * omega * (1 + 1e-9) * self.dt)
+            X = np.linalg.solve(s[:, None, None] * np.eye(n) - self.A, B)
         return self.C @ X + self.D
 
 
@@ -153,7 +159,8 @@ def lqg_poles(design: BalanceDesign, estimator: EstimatorDesign) -> np.ndarray:
     For a Kalman filter without delay they are the LQR poles and the estimator poles together (separation).
     """
     C = measurement_matrix(design, estimator)
-    return np.linalg.eigvals(closed_loop(discrete_plant(design, C), discrete_controller(design, estimator)))
+    A = closed_loop(discrete_plant(design, C), discrete_controller(design, estimator))
+    return np.linalg.eigvals(A).astype(complex)
 
 
 def measurement_matrix(design: BalanceDesign, estimator: EstimatorDesign) -> np.ndarray:

@@ -128,7 +128,7 @@ def test_bad_balance_tables(tmp_path, capsys, label, edit, key, message):
     assert code == 2 and out == ""
     lines = err.strip().splitlines()
     assert len(lines) == 1 and "Traceback" not in err
-    assert f"{path}: {key}: " in lines[0]
+    assert f"{path}: {key} " in lines[0]
     assert re.search(message, lines[0]), lines[0]
 
 

@@ -161,8 +161,9 @@ BALANCE = Table(
         Key("q", "floats", "-", "State weights, one per state in state order.", default=None, low=0.0),
         Key("r", "floats", "-", "Input weights, one per input in input order (cart, shoulder, elbow).",
             default=None, low=0.0, low_open=True),
-        Key("sample_rate", "float", "Hz", "The controller's loop rate.", default=500.0, low=0.0, low_open=True,
-            plausible=(20.0, 20000.0)),
+        Key("sample_rate", "float", "Hz", "The controller's loop rate; the balance design warns below 10x the fastest "
+            "unstable pole's rate (as a frequency, lambda / 2 pi) and refuses below 2x.", default=500.0, low=0.0,
+            low_open=True, plausible=(20.0, 20000.0)),
         Key("delay_samples", "int", "samples", "Computation delay designed in: u[k] is applied d samples late.",
             default=0, low=0, high=10),
         Key("process_noise", "float", "rad/s^2", "Kalman filter tuning: standard deviation of the unmodelled "

@@ -2,6 +2,12 @@
 
 from __future__ import annotations
 
+import os
+
+# Small dense matrices dominate the tests; a multithreaded BLAS on 2 shared cores makes them 10-20x slower.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+
 import pytest
 from rigs import SCENARIOS
 

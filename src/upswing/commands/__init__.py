@@ -3,6 +3,6 @@
 
 from __future__ import annotations
 
-from upswing.commands import check, modes
+from upswing.commands import check, modes, verify
 
-COMMANDS = (check, modes)
+COMMANDS = (check, modes, verify)

@@ -30,6 +30,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "full-state feedback, a baseline")
     parser.add_argument("--horizon", type=float, default=5.0, metavar="SECONDS",
                         help="simulated time per Monte Carlo rollout (default 5 s)")
+    parser.add_argument("--roa-samples", type=int, default=1500, metavar="N",
+                        help="starts in the first round of the region-of-attraction estimate (default 1500)")
 
 
 def verification_json(v: Verification) -> dict[str, Any]:
@@ -81,11 +83,14 @@ def run(args: argparse.Namespace) -> Outcome:
         raise RequestError(f"--rollouts must be at least 1; got {args.rollouts}")
     if args.seed < 0:
         raise RequestError(f"--seed must be >= 0; got {args.seed}")
+    if args.roa_samples < 10:
+        raise RequestError(f"--roa-samples must be at least 10; got {args.roa_samples}")
     if not args.horizon > 1.0:
         raise RequestError(f"--horizon must be more than the 1 s hold window; got {args.horizon:g} s")
     progress = (not args.json) and sys.stderr.isatty()
     v = verify_balance(rig, rollouts=args.rollouts, seed=args.seed, measurement=args.measurement,
-                       horizon=args.horizon, scheduler=args.scheduler, progress=progress)
+                       horizon=args.horizon, scheduler=args.scheduler, progress=progress,
+                       roa_samples=args.roa_samples)
     data = {**rig_header(rig), **verification_json(v),
             "units_extra": {"budgets": "each line's unit", "rho": "cost-to-go (dimensionless mix of state units)",
                             "timing": "s"},

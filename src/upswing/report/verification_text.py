@@ -30,10 +30,13 @@ def verification_text(rig: Rig, v: Verification) -> str:
             f"{c.mean_deviation_held:+.1%})" for c in notable))
     rows = [[b.name, _number(b.value), _number(b.median), _number(b.limit), b.unit,
              "-" if b.ok is None else ("ok" if b.ok else "OVER")] for b in v.budgets]
-    out += ["", "Budgets (worst over all rollouts):", table(rows, ["budget", "worst", "median", "limit", "unit", ""])]
-    rows = [[s, f"{roa.level_set_extents[s]:.3g}", f"{lo:+.3g}", f"{hi:+.3g}"] for s, (lo, hi) in roa.axis_catch.items()]
+    out += ["", "Budgets (worst over the rollouts that held):",
+            table(rows, ["budget", "worst", "median", "limit", "unit", ""])]
+    rows = [[s, f"{roa.level_set_extents[s]:.3g}", f"{lo:+.3g}", f"{hi:+.3g}"]
+            for s, (lo, hi) in roa.axis_catch.items()]
     out += ["", f"Region of attraction ({roa.method}):",
-            f"  rho = {roa.rho:.4g} (x'Px <= rho; {roa.samples} held starts inside, {roa.samples_total} simulated)",
+            f"  rho = {roa.rho:.4g} (x'Px <= rho; {roa.samples} held starts inside, "
+            f"{roa.samples_total} simulated)",
             table(rows, ["state", "level-set half-width", "caught from (axis)", "caught to (axis)"])]
     d = v.dropout
     out += ["", "Sensor drop-out (reading frozen at t = 1 s): " + ", ".join(

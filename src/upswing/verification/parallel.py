@@ -128,7 +128,7 @@ def _warm_up(task: Task) -> None:
 
 def _run_on_cluster(tasks: list[Task], address: str, done) -> None:
     try:
-        from dask.distributed import Client, as_completed as dask_completed
+        from dask.distributed import Client
     except ImportError:
         raise RequestError("--scheduler needs dask.distributed; install it with pip install 'upswing[cluster]'") \
             from None
@@ -139,8 +139,7 @@ def _run_on_cluster(tasks: list[Task], address: str, done) -> None:
                            "`dask scheduler` and give its tcp:// address") from None
     try:
         futures = client.map(run_task, tasks, pure=False)
-        by_key = {f.key: t for f, t in zip(futures, tasks, strict=True)}
-        for future in dask_completed(futures):
-            done(by_key[future.key], future.result())
+        for future, task in zip(futures, tasks, strict=True):  # in block order; all run meanwhile
+            done(task, future.result())
     finally:
         client.close()

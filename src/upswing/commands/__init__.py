@@ -3,6 +3,6 @@
 
 from __future__ import annotations
 
-from upswing.commands import balance, check, modes
+from upswing.commands import balance, check, modes, verify
 
-COMMANDS = (check, modes, balance)
+COMMANDS = (check, modes, balance, verify)

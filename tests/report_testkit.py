@@ -10,6 +10,7 @@ import numpy as np
 from PIL import Image
 
 from upswing.model.rig import Rig, load_rig
+from upswing.verification.budgets import Budget
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 
@@ -19,8 +20,14 @@ SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 MIN_INK = 0.06
 
 
-def demo_rig(name: str) -> Rig:
+def scenario_rig(name: str) -> Rig:
+    """A demo rig by file stem ("acrobot", "cart-double", ...)."""
     return load_rig(SCENARIOS / f"{name}.toml")
+
+
+def budget(name: str, value: float, limit: float | None, unit: str, ok: bool | None) -> Budget:
+    """A budget line as verification makes them (median = value, no meaning text)."""
+    return Budget(name=name, value=value, limit=limit, unit=unit, ok=ok, median=value, meaning="")
 
 
 def swing_trajectory(rig: Rig, duration: float = 2.0, n: int = 201) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

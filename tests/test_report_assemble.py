@@ -7,7 +7,7 @@ import re
 from datetime import datetime
 
 import pytest
-from report_testkit import MIN_INK, demo_rig, ink_fraction, pixels
+from report_testkit import MIN_INK, ink_fraction, pixels, scenario_rig
 from test_report_html import Page
 
 from upswing.model.derived import keep_out_radius
@@ -20,7 +20,7 @@ MADE = datetime(2031, 5, 4, 9, 30)
 
 @pytest.mark.parametrize("name", ["acrobot", "cart-double", "arm-2dof"])  # pendubot: same paths as these
 def test_model_report_for_each_demo_rig(name):
-    rig = demo_rig(name)
+    rig = scenario_rig(name)
     text = build_model_report(rig, made=MADE)
     assert len(text.encode()) < 2_000_000  # one file that mails and opens quickly
     page = Page(text)
@@ -42,9 +42,9 @@ def test_model_report_for_each_demo_rig(name):
 
 
 def test_holding_budget_is_the_static_gravity_torque():
-    rig = demo_rig("acrobot")
+    rig = scenario_rig("acrobot")
     (budget,) = holding_budgets(rig)
     # Link 2 held horizontal by the elbow: torque m2 g lc2 about the elbow (statics, common practice).
     assert budget.value == pytest.approx(rig.link2.mass * rig.gravity * rig.link2.com, rel=1e-12)
     assert budget.limit == rig.actuator("elbow").peak
-    assert holding_budgets(demo_rig("cart-double")) == ()  # gravity does not load a cart along its rail
+    assert holding_budgets(scenario_rig("cart-double")) == ()  # gravity does not load a cart along its rail

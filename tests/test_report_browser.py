@@ -23,7 +23,7 @@ import time
 from pathlib import Path
 
 import pytest
-from report_testkit import demo_rig, ink_fraction, pixels, swing_trajectory
+from report_testkit import ink_fraction, pixels, scenario_rig, swing_trajectory
 
 from upswing.report import figures_rig, figures_time
 from upswing.report.assemble import model_document
@@ -162,7 +162,7 @@ def browser(tmp_path_factory):
 
 def report_with_motion(name: str) -> str:
     """The rig and modes report plus a section of made-up motion, so animated and time-history images load too."""
-    rig = demo_rig(name)
+    rig = scenario_rig(name)
     t, X, U = swing_trajectory(rig)
     base = model_document(rig)
     motion = Section("Motion (made-up test data)", (

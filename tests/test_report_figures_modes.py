@@ -8,7 +8,7 @@ import re
 import numpy as np
 import pytest
 import scipy.linalg
-from report_testkit import demo_rig
+from report_testkit import scenario_rig
 
 from upswing.model.equilibria import EQUILIBRIA
 from upswing.model.linearize import linearize
@@ -23,7 +23,7 @@ def plotted_eigenvalues(ax) -> np.ndarray:
 
 @pytest.mark.parametrize("name", ["acrobot", "cart-double"])
 def test_eigenvalue_map_plots_exactly_the_eigenvalues_of_each_linear_model(name):
-    rig = demo_rig(name)
+    rig = scenario_rig(name)
     fig = figures_modes.eigenvalue_map_figure(rig)
     panels = [ax for ax in fig.axes if ax.get_title(loc="left")]
     assert [ax.get_title(loc="left").split(":")[0] for ax in panels] == list(EQUILIBRIA)
@@ -57,7 +57,7 @@ def compound_pendulum_modes(rig) -> tuple[np.ndarray, np.ndarray]:
 
 @pytest.mark.parametrize("name", ["acrobot", "pendubot", "arm-2dof"])
 def test_mode_shapes_are_drawn_with_the_textbook_frequencies_and_swing_ratios(name):
-    rig = demo_rig(name)
+    rig = scenario_rig(name)
     freq, V = compound_pendulum_modes(rig)
     fig = figures_modes.mode_shapes_figure(rig)
     panels = [ax for ax in fig.axes if ax.get_title(loc="left")]
@@ -75,7 +75,7 @@ def test_mode_shapes_are_drawn_with_the_textbook_frequencies_and_swing_ratios(na
 
 
 def test_cart_rig_shows_the_free_rolling_mode():
-    fig = figures_modes.mode_shapes_figure(demo_rig("cart-double"))
+    fig = figures_modes.mode_shapes_figure(scenario_rig("cart-double"))
     titles = [ax.get_title(loc="left") for ax in fig.axes if ax.get_title(loc="left")]
     assert len(titles) == 3  # a free cart adds a rigid-body mode at 0 Hz to the two pendulum modes
     assert "0 Hz" in titles[0]

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from matplotlib.lines import Line2D
 from PIL import Image
-from report_testkit import demo_rig, ink_fraction, swing_trajectory
+from report_testkit import ink_fraction, scenario_rig, swing_trajectory
 from scipy.interpolate import interp1d
 
 from upswing.errors import RequestError
@@ -35,7 +35,7 @@ def drawn_links(ax):
 @pytest.mark.parametrize("name, q", [("acrobot", (0.4, -1.1)), ("cart-double", (0.12, 2.5, 0.7)),
                                      ("pendubot", (-2.9, 0.3))])
 def test_links_are_drawn_where_the_geometry_puts_them(name, q):
-    rig = demo_rig(name)
+    rig = scenario_rig(name)
     fig = figures_rig.rig_figure(rig, np.array(q))
     pivot, elbow, tip = textbook_points(rig, q)
     for ax in fig.axes[:2]:
@@ -55,7 +55,7 @@ def distance_to_shoulder_path(rig, points):
 
 @pytest.mark.parametrize("name", ["acrobot", "cart-double"])
 def test_swept_outline_is_the_edge_of_the_reachable_region(name):
-    rig = demo_rig(name)
+    rig = scenario_rig(name)
     reach = rig.link1.length + rig.link2.length
     outline = figures_rig.swept_outline(rig, reach).T
     # The workspace of a planar two-link arm with unlimited joints is the disc of radius l1 + l2 about the
@@ -80,7 +80,7 @@ def test_swept_outline_is_the_edge_of_the_reachable_region(name):
 
 
 def test_keep_out_boundary_matches_the_derived_distance():
-    rig = demo_rig("cart-double")
+    rig = scenario_rig("cart-double")
     fig = figures_rig.rig_figure(rig)
     dashed = [p for p in fig.axes[1].patches if p.get_label() == "keep-out boundary"]
     assert len(dashed) == 1
@@ -89,7 +89,7 @@ def test_keep_out_boundary_matches_the_derived_distance():
 
 
 def test_filmstrip_panels_show_the_trajectory_at_evenly_spaced_times():
-    rig = demo_rig("acrobot")
+    rig = scenario_rig("acrobot")
     t, X, _ = swing_trajectory(rig, duration=2.0)
     frames = 6
     fig = figures_rig.filmstrip_figure(rig, t, X, frames=frames, columns=3)
@@ -105,7 +105,7 @@ def test_filmstrip_panels_show_the_trajectory_at_evenly_spaced_times():
 
 
 def test_gif_is_real_time_small_and_moving():
-    rig = demo_rig("acrobot")
+    rig = scenario_rig("acrobot")
     duration = 2.0
     t, X, _ = swing_trajectory(rig, duration=duration)
     data = figures_rig.animation_gif(rig, t, X, hold_end=0.5)
@@ -127,7 +127,7 @@ def test_gif_is_real_time_small_and_moving():
 
 
 def test_bad_trajectories_are_refused():
-    rig = demo_rig("acrobot")
+    rig = scenario_rig("acrobot")
     t, X, _ = swing_trajectory(rig)
     with pytest.raises(RequestError, match=r"need shape \(N, 4\)"):
         figures_rig.filmstrip_figure(rig, t, X[:, :3])

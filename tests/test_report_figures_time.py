@@ -8,13 +8,12 @@ import re
 import numpy as np
 import pytest
 from matplotlib.patches import Rectangle
-from report_testkit import demo_rig, swing_trajectory
+from report_testkit import budget, scenario_rig, swing_trajectory
 from scipy.integrate import cumulative_trapezoid
 
 from upswing.errors import RequestError
 from upswing.model.rig import Actuator
 from upswing.report import figures_time
-from upswing.report.verdict import Budget
 
 
 def test_running_rms_of_a_sine_is_its_amplitude_over_root_two():
@@ -48,7 +47,7 @@ def test_motor_limits_follow_the_linear_torque_speed_line():
 
 @pytest.mark.parametrize("name", ["acrobot", "cart-double", "arm-2dof"])
 def test_time_history_draws_the_data_and_the_envelope(name):
-    rig = demo_rig(name)
+    rig = scenario_rig(name)
     t, X, U = swing_trajectory(rig)
     fig = figures_time.time_history_figure(rig, t, X, U)
     axes = [ax for ax in fig.axes if ax.get_ylabel()]
@@ -64,7 +63,7 @@ def test_time_history_draws_the_data_and_the_envelope(name):
 
 
 def test_time_history_refuses_mismatched_arrays():
-    rig = demo_rig("acrobot")
+    rig = scenario_rig("acrobot")
     t, X, U = swing_trajectory(rig)
     with pytest.raises(RequestError, match=r"X \(N, 4\)"):
         figures_time.time_history_figure(rig, t, X[:-1], U)
@@ -83,7 +82,7 @@ def test_histogram_counts_match_numpy():
 
 
 def test_budget_bars_show_usage_and_mark_failures_in_words_and_hatching():
-    budgets = [Budget("peak torque", 1.62, 1.9, "N m", True), Budget("RMS torque", 0.81, 0.75, "N m", False)]
+    budgets = [budget("peak torque", 1.62, 1.9, "N m", True), budget("RMS torque", 0.81, 0.75, "N m", False)]
     fig = figures_time.budget_bars_figure(budgets)
     ax = fig.axes[0]
     bars = sorted((p for p in ax.patches if isinstance(p, Rectangle) and p.get_height() == pytest.approx(0.62)),

@@ -8,11 +8,13 @@ from html.parser import HTMLParser
 
 import pytest
 from PIL import Image as PILImage
+from report_testkit import budget
 
 from upswing.errors import RequestError
-from upswing.report.html import Document, Hazard, Image, Notes, Paragraph, Section, Table, render
-from upswing.report.verdict import Budget, Margin, Verdict
+from upswing.report.html import Document, Image, Notes, Paragraph, Section, Table, render
+from upswing.report.verdict import Margin, Verdict
 from upswing.safety import CAUTIONS, STANDARDS
+from upswing.verification.hazards import HazardNote
 
 VOID = {"meta", "link", "img", "br", "hr", "input", "source", "col", "wbr", "area", "base", "embed", "track"}
 EVIL = '<script>alert("x")</script> & "quoted" <img src=http://example.invalid/x.png onerror=alert(1)>'
@@ -64,7 +66,7 @@ def document(verdict: Verdict | None = None, text: str = "plain") -> Document:
                                            Table(("quantity", "value [m]"), ((text, "0.25"), ("b", "-"))),
                                            Image(png(), "image/png", f"caption {text}"))),
                   Section("Second", (Image(png(4, 4), "image/png", "another"),))),
-        hazards=(Hazard(f"hazard {text}", f"detail {text}", ("ISO 13850", "local rule 7")),))
+        hazards=(HazardNote(f"hazard {text}", f"detail {text}", ("ISO 13850", "local rule 7")),))
 
 
 def test_page_is_well_formed_and_self_contained():
@@ -113,7 +115,7 @@ def test_images_round_trip_and_bad_images_are_refused():
 
 def test_verdict_comes_first_and_hazards_last_with_every_standard_and_caution():
     verdict = Verdict("do-not-power", "Do not power: RMS torque fails.",
-                      Budget("elbow RMS torque", 0.81, 0.75, "N m", False), Margin("disk margin", 0.4, 0.3, "-", True))
+                      budget("elbow RMS torque", 0.81, 0.75, "N m", False), Margin("disk margin", 0.4, 0.3, "-", True))
     text = render(document(verdict))
     page = Page(text)
     order = [a.get("class") or a.get("id") for t, a in page.tags if t == "section"]

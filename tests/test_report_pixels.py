@@ -7,10 +7,9 @@ import io
 import numpy as np
 import pytest
 from PIL import Image
-from report_testkit import MIN_INK, demo_rig, ink_fraction, pixels, swing_trajectory
+from report_testkit import MIN_INK, budget, ink_fraction, pixels, scenario_rig, swing_trajectory
 
 from upswing.report import figures_modes, figures_rig, figures_time, style
-from upswing.report.verdict import Budget
 
 
 @style.styled
@@ -29,7 +28,7 @@ def test_the_blank_check_can_fail():
 
 
 def _builders():
-    acrobot, cart = demo_rig("acrobot"), demo_rig("cart-double")
+    acrobot, cart = scenario_rig("acrobot"), scenario_rig("cart-double")
     grid = np.linspace(-1.0, 1.0, 31)
     return {
         "rig (fixed)": lambda: figures_rig.rig_figure(acrobot),
@@ -41,8 +40,8 @@ def _builders():
         "torque-speed": lambda: figures_time.torque_speed_figure(acrobot, *swing_trajectory(acrobot)[1:]),
         "histogram": lambda: figures_time.histogram_figure(np.random.default_rng(0).normal(1.0, 0.2, 400),
                                                            quantity="peak torque", unit="N m", limit=1.5),
-        "budget bars": lambda: figures_time.budget_bars_figure([Budget("rail", 0.3, 0.41, "m", True),
-                                                                Budget("RMS", 0.8, 0.75, "N m", False)]),
+        "budget bars": lambda: figures_time.budget_bars_figure([budget("rail", 0.3, 0.41, "m", True),
+                                                                budget("RMS", 0.8, 0.75, "N m", False)]),
         "slice map": lambda: figures_time.slice_map_figure(grid, grid, np.add.outer(grid**2, grid**2) < 0.4,
                                                            x_quantity="a", x_unit="rad", y_quantity="b",
                                                            y_unit="rad/s"),
@@ -57,7 +56,7 @@ def test_figure_is_not_blank(name):
 
 
 def test_every_gif_frame_is_not_blank():
-    rig = demo_rig("cart-double")
+    rig = scenario_rig("cart-double")
     t, X, _ = swing_trajectory(rig, duration=1.0)
     gif = Image.open(io.BytesIO(figures_rig.animation_gif(rig, t, X, hold_end=0.0)))
     for k in range(gif.n_frames):

@@ -8,10 +8,9 @@ import matplotlib
 import numpy as np
 import pytest
 from matplotlib.colors import to_rgb
-from report_testkit import demo_rig, swing_trajectory
+from report_testkit import budget, scenario_rig, swing_trajectory
 
 from upswing.report import figures_modes, figures_rig, figures_time, style
-from upswing.report.verdict import Budget
 
 
 def cie_lightness(color: str) -> float:
@@ -34,12 +33,12 @@ def test_series_differ_in_lightness_style_and_marker():
 
 def test_styled_leaves_global_settings_alone():
     before = dict(matplotlib.rcParams)
-    figures_time.budget_bars_figure([Budget("rail", 0.1, 0.4, "m", True)])
+    figures_time.budget_bars_figure([budget("rail", 0.1, 0.4, "m", True)])
     assert dict(matplotlib.rcParams) == before
 
 
 def test_png_bytes_are_reproducible():
-    rig = demo_rig("pendubot")
+    rig = scenario_rig("pendubot")
     first = style.png_bytes(figures_rig.rig_figure(rig))
     second = style.png_bytes(figures_rig.rig_figure(rig))
     assert first == second  # no timestamp or version in the file: equal figures, equal bytes
@@ -47,7 +46,7 @@ def test_png_bytes_are_reproducible():
 
 
 def _all_figures():
-    acrobot, cart = demo_rig("acrobot"), demo_rig("cart-double")
+    acrobot, cart = scenario_rig("acrobot"), scenario_rig("cart-double")
     t, X, U = swing_trajectory(acrobot)
     tc, Xc, Uc = swing_trajectory(cart)
     x = np.linspace(-1, 1, 21)
@@ -58,7 +57,7 @@ def _all_figures():
         "time history": figures_time.time_history_figure(cart, tc, Xc, Uc),
         "torque-speed": figures_time.torque_speed_figure(acrobot, X, U),
         "histogram": figures_time.histogram_figure(np.arange(50.0), quantity="peak torque", unit="N m", limit=40),
-        "budgets": figures_time.budget_bars_figure([Budget("rail", 0.1, 0.4, "m", True)]),
+        "budgets": figures_time.budget_bars_figure([budget("rail", 0.1, 0.4, "m", True)]),
         "slice": figures_time.slice_map_figure(x, x, np.add.outer(x**2, x**2) < 0.5, x_quantity="theta1 error",
                                                x_unit="rad", y_quantity="theta1_dot", y_unit="rad/s"),
     }

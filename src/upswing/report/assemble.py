@@ -16,7 +16,6 @@ from upswing.model.rig import Rig
 from upswing.report import figures_modes, figures_rig, figures_time
 from upswing.report.html import (
     Document,
-    Hazard,
     Notes,
     Paragraph,
     Section,
@@ -24,7 +23,9 @@ from upswing.report.html import (
     figure_image,
     render,
 )
-from upswing.report.verdict import Budget, Margin, Verdict, smallest_margin, tightest_budget
+from upswing.report.verdict import Margin, Verdict, smallest_margin, tightest_budget
+from upswing.verification.budgets import Budget
+from upswing.verification.hazards import HazardNote, fall_energy, fall_tip_speed
 
 NOT_YET_RUN = ("balance design", "swing-up", "verification on the nonlinear model")
 
@@ -46,8 +47,10 @@ def holding_budgets(rig: Rig) -> tuple[Budget, ...]:
     load along the rail."""
     link2 = rig.link2
     load = {"shoulder": derived_quantities(rig).holding_torque, "elbow": rig.gravity * link2.mass * link2.com}
-    return tuple(Budget(f"{a.joint} holding links horizontal (static)", load[a.joint], a.peak, "N m",
-                        load[a.joint] <= a.peak) for a in rig.actuators if a.joint in load)
+    return tuple(Budget(name=f"{a.joint} holding links horizontal (static)", value=load[a.joint], limit=a.peak,
+                        unit="N m", ok=load[a.joint] <= a.peak, median=load[a.joint],
+                        meaning="gravity torque with the links beyond the joint horizontal and straight")
+                 for a in rig.actuators if a.joint in load)
 
 
 def control_margins(rig: Rig, reports: dict[str, EquilibriumReport]) -> tuple[Margin, ...]:
@@ -127,30 +130,31 @@ def modes_section(rig: Rig, reports: dict[str, EquilibriumReport]) -> Section:
     return Section("Equilibria and modes", tuple(blocks), key="modes")
 
 
-def model_hazards(rig: Rig, reports: dict[str, EquilibriumReport]) -> tuple[Hazard, ...]:
-    """Hazards that follow from the rig and its linear models alone."""
+def model_hazards(rig: Rig, reports: dict[str, EquilibriumReport]) -> tuple[HazardNote, ...]:
+    """Hazards that follow from the rig and its linear models alone (the design run adds those of its runs)."""
     d = derived_quantities(rig)
-    hazards = [Hazard(
-        "Swept region",
+    notes = [HazardNote(
+        "swept zone",
         f"The links can reach {d.reach:.2f} m from the shoulder axis"
         + (f" and the shoulder rides {rig.cart.travel:.2f} m either side of the rail centre" if rig.cart else "")
         + f". Keep people at least {keep_out_radius(rig):.2f} m from the "
-        + ("rail centre" if rig.cart else "shoulder axis") + " while the drive is enabled, or guard the region.",
-        ("ISO 13857", "ISO 14120"))]
+        + ("rail centre" if rig.cart else "shoulder axis") + " while the drive is enabled, or guard the zone.",
+        ("ISO 12100", "ISO 14120", "ISO 13857"))]
     upright = reports["upright"]
     if upright.growth_rates:
-        hazards.append(Hazard(
-            "Falling from upright",
+        notes.append(HazardNote(
+            "falling from upright",
             f"If the controller stops or saturates at upright the links fall, doubling their angle every "
-            f"{1000 * min(upright.time_to_double):.0f} ms. A stop must remove drive power safely without "
+            f"{1000 * min(upright.time_to_double):.0f} ms, and release up to {fall_energy(rig):.3g} J; the tip can "
+            f"pass {fall_tip_speed(rig):.1f} m/s at the bottom. A stop must remove drive power safely without "
             "relying on the balance loop, and the emergency stop must be within reach.",
             ("ISO 13850", "IEC 60204-1", "ISO 13849-1")))
     if rig.cart is not None:
-        hazards.append(Hazard(
-            "End stops",
+        notes.append(HazardNote(
+            "end stops",
             f"The cart reaches the end stops at ±{rig.cart.travel:.2f} m. Fit energy-absorbing stops and limit "
             "switches that cut the drive before impact.", ("ISO 12100", "IEC 60204-1")))
-    return tuple(hazards)
+    return tuple(notes)
 
 
 def model_document(rig: Rig, *, made: datetime | None = None) -> Document:

@@ -21,7 +21,8 @@ from matplotlib.ticker import MultipleLocator
 from upswing.errors import RequestError
 from upswing.model.rig import Actuator, Rig
 from upswing.report import style
-from upswing.report.verdict import Budget
+from upswing.report.verdict import rated, usage
+from upswing.verification.budgets import Budget
 
 SPEED_STATE = {"cart": "x_dot", "shoulder": "theta1_dot", "elbow": "theta2_dot"}  # what each actuator turns
 
@@ -273,22 +274,24 @@ def histogram_figure(values: np.ndarray, *, quantity: str, unit: str, limit: flo
 
 @style.styled
 def budget_bars_figure(budgets: Sequence[Budget], *, title: str = "") -> Figure:
-    """Each budget's usage (value / limit) as a horizontal bar against the 100 % line.
+    """Each rated budget's usage (value / limit) as a horizontal bar against the 100 % line, in the given order.
 
     Met budgets are solid slate bars; failed ones are dark, cross-hatched and marked "FAILS" in words, so the
-    difference survives greyscale printing.
+    difference survives greyscale printing. Budgets without a limit have no usage and are left out (show them in
+    a table).
     """
+    budgets = rated(budgets)
     if not budgets:
-        raise RequestError("budget bars need at least one budget")
-    usage = np.array([100.0 * b.usage for b in budgets])
+        raise RequestError("budget bars need at least one budget with a limit")
+    shares = np.array([100.0 * usage(b) for b in budgets])
     fig = style.new_figure(7.2, 0.9 + 0.36 * len(budgets))
     ax = fig.add_subplot()
     rows = np.arange(len(budgets))[::-1]
-    top = max(125.0, 1.1 * float(np.max(usage)))
+    top = max(125.0, 1.1 * float(np.max(shares)))
     ax.set_xlim(0.0, top)
     ax.set_ylim(-0.6, len(budgets) - 0.4)
     style.shade_beyond(ax, None, 100.0, horizontal=False)
-    for y, b, pct in zip(rows, budgets, usage, strict=True):
+    for y, b, pct in zip(rows, budgets, shares, strict=True):
         ax.barh(y, min(max(pct, 0.0), top), height=0.62, color=style.SLATE if b.ok else style.FAIL,
                 edgecolor=style.INK, linewidth=0.6, hatch=None if b.ok else "xx", zorder=3)
         text = f"{b.value:.3g} of {b.limit:.3g} {b.unit} ({pct:.0f} %)" + ("" if b.ok else "  FAILS")

@@ -20,8 +20,10 @@ from matplotlib.figure import Figure
 from upswing import __version__
 from upswing.errors import RequestError
 from upswing.report import style
-from upswing.report.verdict import Budget, Margin, Verdict
+from upswing.report.verdict import Margin, Verdict, usage
 from upswing.safety import CAUTIONS, GOVERNING, STANDARDS
+from upswing.verification.budgets import Budget
+from upswing.verification.hazards import HazardNote
 
 IMAGE_TYPES = ("image/png", "image/gif")
 _NUMBER = re.compile(r"^[+\-−]?(\d+(\.\d*)?|\.\d+)([eE][+\-]?\d+)?( ?%)?$")
@@ -117,16 +119,6 @@ class Section:
 
 
 @dataclass(frozen=True)
-class Hazard:
-    """A hazard the analysis found, with what to do and the standards that govern it (numbers as in
-    :data:`upswing.safety.STANDARDS` where possible)."""
-
-    title: str
-    detail: str
-    standards: tuple[str, ...] = ()
-
-
-@dataclass(frozen=True)
 class Document:
     """A whole report.
 
@@ -142,8 +134,9 @@ class Document:
         Shown first.
     sections : tuple of Section
         The body, in order; a hazards section is always added after them.
-    hazards : tuple of Hazard
-        Hazards specific to this rig and run.
+    hazards : tuple of HazardNote
+        Hazards specific to this rig and run (:class:`upswing.verification.hazards.HazardNote`: topic, text and
+        the standards it points to).
     """
 
     title: str
@@ -151,7 +144,7 @@ class Document:
     facts: tuple[tuple[str, str], ...]
     verdict: Verdict
     sections: tuple[Section, ...]
-    hazards: tuple[Hazard, ...] = ()
+    hazards: tuple[HazardNote, ...] = ()
 
 
 # ------------------------------------------------------------------------------------------------------------ CSS
@@ -269,13 +262,13 @@ def _block(block: Block, counter: _Counter) -> str:
 def _budget_card(budget: Budget | None) -> str:
     if budget is None:
         return ('<div class="limit"><h3>Tightest budget</h3><p class="what">none measured yet</p></div>')
-    share = 100.0 * budget.usage
-    over = "" if budget.ok else " over"
+    share = 100.0 * usage(budget)
+    over = "" if budget.ok is not False else " over"
     # The gauge's full width is 125 % of the limit; its tick (at 80 % of the width) marks the limit itself.
     width = max(0.0, min(100.0, share / 1.25))
     return (f'<div class="limit"><h3>Tightest budget</h3><p class="what">{esc(budget.name)}</p>'
             f'<p class="amount">{esc(f"{budget.value:.3g} of {budget.limit:.3g} {budget.unit}")} '
-            f"({share:.0f} % used){'' if budget.ok else ' &mdash; <b>fails</b>'}</p>"
+            f"({share:.0f} % used){'' if budget.ok is not False else ' &mdash; <b>fails</b>'}</p>"
             f'<div class="gauge{over}" role="img" aria-label="{share:.0f} percent of the limit used">'
             f'<span style="width: {width:.1f}%"></span></div></div>')
 
@@ -302,12 +295,12 @@ def _verdict(verdict: Verdict) -> str:
             f"{reasons}</section>")
 
 
-def hazards_section(hazards: Sequence[Hazard]) -> str:
+def hazards_section(hazards: Sequence[HazardNote]) -> str:
     """The closing section: the run's hazards, the usual cautions, and the standards cited."""
     parts = []
     for hazard in hazards:
         cites = "; ".join(f"{s} ({STANDARDS[s]})" if s in STANDARDS else s for s in hazard.standards)
-        parts.append(f'<div class="hazard"><h3>{esc(hazard.title)}</h3><p>{esc(hazard.detail)}</p>'
+        parts.append(f'<div class="hazard"><h3>{esc(hazard.topic)}</h3><p>{esc(hazard.text)}</p>'
                      + (f'<p class="cites">See {esc(cites)}.</p>' if cites else "") + "</div>")
     if not hazards:
         parts.append("<p>No rig-specific hazard was flagged; the cautions below apply to every rig.</p>")

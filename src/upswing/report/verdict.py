@@ -1,10 +1,11 @@
-"""Budgets, margins and the verdict a report leads with: plain data, filled in by whichever stage measured them.
+"""Margins and the verdict a report leads with: plain data, filled in by whichever stage measured them.
 
-A **budget** is a quantity that must stay at or below a limit (peak torque used against the drive's peak, RMS
-against the continuous rating, rail used against travel, ...); its *usage* is value / limit. A **margin** is a
-quantity that must stay at or above a required minimum (a disk margin, a PBH controllability margin, a success
-rate); its *ratio* is value / required. The report names the budget with the highest usage and the margin with
-the lowest ratio as what limits the verdict.
+A **budget** (:class:`upswing.verification.budgets.Budget`) is a quantity that must stay at or below a limit (peak
+torque against the drive's peak, RMS against the continuous rating, rail used against travel, ...); its *usage* is
+value / limit, and a budget without a limit (``limit=None``) has none. A **margin** is a quantity that must stay at
+or above a required minimum (a disk margin, a PBH controllability margin, a success rate); its *ratio* is
+value / required. The report names the budget with the highest usage and the margin with the lowest ratio as what
+limits the verdict.
 """
 
 from __future__ import annotations
@@ -15,44 +16,9 @@ from dataclasses import dataclass
 from typing import Any
 
 from upswing.errors import RequestError
+from upswing.verification.budgets import Budget
 
 STATUSES = ("power", "do-not-power", "incomplete")
-
-
-@dataclass(frozen=True)
-class Budget:
-    """A quantity that must stay at or below its limit.
-
-    Attributes
-    ----------
-    name : str
-        What is budgeted, in words ("elbow peak torque").
-    value : float
-        What the run used, in ``unit``.
-    limit : float
-        What is allowed, in ``unit`` (> 0).
-    unit : str
-        Unit of ``value`` and ``limit`` ("N m", "m", "%", ...).
-    ok : bool
-        Whether the budget is met (decided by the stage that measured it).
-    """
-
-    name: str
-    value: float
-    limit: float
-    unit: str
-    ok: bool
-
-    def __post_init__(self) -> None:
-        if not (math.isfinite(self.limit) and self.limit > 0):
-            raise RequestError(f"budget {self.name!r}: limit must be a finite number > 0; got {self.limit!r}")
-        if not math.isfinite(self.value):
-            raise RequestError(f"budget {self.name!r}: value must be finite; got {self.value!r}")
-
-    @property
-    def usage(self) -> float:
-        """value / limit [-]: 1 means the whole budget is used."""
-        return self.value / self.limit
 
 
 @dataclass(frozen=True)
@@ -119,9 +85,27 @@ class Verdict:
             raise RequestError(f"verdict status must be one of {', '.join(STATUSES)}; got {self.status!r}")
 
 
+def usage(budget: Budget) -> float:
+    """value / limit [-] of a budget with a limit (1 means the whole budget is used).
+
+    Raises
+    ------
+    RequestError
+        For a budget without a limit, or with a limit that is not a finite number > 0.
+    """
+    if budget.limit is None or not (math.isfinite(budget.limit) and budget.limit > 0):
+        raise RequestError(f"budget {budget.name!r}: usage needs a finite limit > 0; got {budget.limit!r}")
+    return budget.value / budget.limit
+
+
+def rated(budgets: Sequence[Budget]) -> tuple[Budget, ...]:
+    """The budgets that have a limit (those without one are reported, not judged)."""
+    return tuple(b for b in budgets if b.limit is not None)
+
+
 def tightest_budget(budgets: Sequence[Budget]) -> Budget | None:
-    """The budget with the highest usage (a failed one first when usages tie), or None for no budgets."""
-    return max(budgets, key=lambda b: (b.usage, not b.ok), default=None)
+    """The rated budget with the highest usage (a failed one first when usages tie), or None if none is rated."""
+    return max(rated(budgets), key=lambda b: (usage(b), b.ok is False), default=None)
 
 
 def smallest_margin(margins: Sequence[Margin]) -> Margin | None:
@@ -130,23 +114,28 @@ def smallest_margin(margins: Sequence[Margin]) -> Margin | None:
 
 
 def budgets_from_records(records: Sequence[Mapping[str, Any]]) -> tuple[Budget, ...]:
-    """Budgets from plain records ``{name, value, limit, unit, ok}`` (e.g. read back from a summary file).
+    """Budgets from plain records ``{name, value, limit, unit, ok}`` (optionally ``median`` and ``meaning``), e.g.
+    read back from a summary file; ``median`` defaults to ``value`` and ``meaning`` to "".
 
     Raises
     ------
     RequestError
-        When a record lacks a field or has one more.
+        When a record lacks a required field or has an unknown one.
     """
-    fields = ("name", "value", "limit", "unit", "ok")
+    required = ("name", "value", "limit", "unit", "ok")
+    optional = ("median", "meaning")
     out = []
     for k, record in enumerate(records):
-        missing = [f for f in fields if f not in record]
-        extra = [f for f in record if f not in fields]
+        missing = [f for f in required if f not in record]
+        extra = [f for f in record if f not in required + optional]
         if missing or extra:
-            raise RequestError(f"budget record {k}: fields must be exactly {', '.join(fields)}; "
-                               f"missing {missing or 'none'}, unexpected {extra or 'none'}")
-        out.append(Budget(name=str(record["name"]), value=float(record["value"]), limit=float(record["limit"]),
-                          unit=str(record["unit"]), ok=bool(record["ok"])))
+            raise RequestError(f"budget record {k}: fields are {', '.join(required)} (and optionally "
+                               f"{', '.join(optional)}); missing {missing or 'none'}, unexpected {extra or 'none'}")
+        limit = None if record["limit"] is None else float(record["limit"])
+        ok = None if record["ok"] is None else bool(record["ok"])
+        value = float(record["value"])
+        out.append(Budget(name=str(record["name"]), value=value, limit=limit, unit=str(record["unit"]), ok=ok,
+                          median=float(record.get("median", value)), meaning=str(record.get("meaning", ""))))
     return tuple(out)
 
 
@@ -161,7 +150,7 @@ def verdict_from(budgets: Sequence[Budget], margins: Sequence[Margin], *, missin
         Analyses not run yet (their absence makes the verdict ``incomplete`` unless something already failed).
     """
     tight, small = tightest_budget(budgets), smallest_margin(margins)
-    failed = [b.name for b in budgets if not b.ok] + [m.name for m in margins if not m.ok]
+    failed = [b.name for b in budgets if b.ok is False] + [m.name for m in margins if not m.ok]
     if failed:
         return Verdict("do-not-power", f"Do not power this rig: {len(failed)} check(s) fail ({', '.join(failed)}).",
                        tight, small, tuple(f"not run yet: {m}" for m in missing))

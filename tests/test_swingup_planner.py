@@ -186,6 +186,7 @@ def test_a_hopeless_limit_is_a_result_with_advice_not_a_traceback():
     ({"start": [0.0, 1.0]}, "4 finite numbers"),
     ({"strategies": ("guess",)}, "strategies must be"),
     ({"coulomb_smoothing": 0.0}, "coulomb_smoothing must be > 0"),
+    ({"strategies": ("warm",)}, "'warm' needs initial_plan"),
 ])
 def test_impossible_requests_are_request_errors(kwargs, fragment):
     with pytest.raises(RequestError, match=fragment):

@@ -9,11 +9,13 @@ Public API::
 
 Modules: :mod:`.collocation` (the Opti problem), :mod:`.compact` (the optimizer's closed-form equations of motion,
 checked against the model), :mod:`.guesses` (initial guesses), :mod:`.mesh` (re-integration check and
-refinement), :mod:`.plan` (the result and its interpolants), :mod:`.planner` (strategies), :mod:`.sizing`.
+refinement), :mod:`.plan` (the result and its interpolants), :mod:`.problem` (validated request, scaling),
+:mod:`.planner` (strategies), :mod:`.sizing`.
 """
 
 from upswing.synthesis.swingup.plan import Attempt, SwingUpPlan
-from upswing.synthesis.swingup.planner import STRATEGIES, default_duration, plan_swingup
+from upswing.synthesis.swingup.planner import STRATEGIES, plan_swingup
+from upswing.synthesis.swingup.problem import default_duration
 from upswing.synthesis.swingup.sizing import SizingResult, TradeoffCurve, plot_tradeoff, size_motor, tradeoff_curve
 
 __all__ = [

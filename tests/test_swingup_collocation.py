@@ -15,6 +15,7 @@ from pathlib import Path
 import casadi as ca
 import numpy as np
 import pytest
+from rigs import FAMILIES, random_rig
 
 from upswing.model.dynamics import model_for
 from upswing.model.rig import load_rig
@@ -133,6 +134,22 @@ def test_compact_dynamics_match_the_model(name):
         reference = model.rhs(x, u, p)
         compact = np.asarray(f(x, u)).ravel()
         np.testing.assert_allclose(compact, reference, rtol=1e-10, atol=1e-10 * np.max(np.abs(reference)))
+
+
+@pytest.mark.parametrize("family", sorted(FAMILIES))
+@pytest.mark.parametrize("seed", range(3))
+def test_compact_dynamics_match_the_model_on_random_rigs(family, seed):
+    # Same comparison on random bench-sized rigs of every family (tests/rigs.py), so no demo value hides a term.
+    rig = random_rig(seed, family)
+    model = model_for(rig, coulomb_smoothing=0.2)
+    f = compact_dynamics(rig, model)
+    rng = np.random.default_rng(100 + seed)
+    for _ in range(10):
+        x = rng.uniform(-6, 6, rig.n_states)
+        u = rng.uniform(-1, 1, rig.n_inputs) * rig.peak_inputs
+        reference = model.rhs(x, u, rig.parameter_vector())
+        np.testing.assert_allclose(np.asarray(f(x, u)).ravel(), reference, rtol=1e-10,
+                                   atol=1e-10 * np.max(np.abs(reference)))
 
 
 def test_refine_splits_bad_intervals_and_their_neighbours():

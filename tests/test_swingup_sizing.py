@@ -75,3 +75,5 @@ def test_sizing_refuses_impossible_requests():
         size_motor(_rig("acrobot"), duration=0.0)
     with pytest.raises(RequestError, match="limits must be"):
         tradeoff_curve(_rig("acrobot"), [[1.0, 2.0]])
+    with pytest.raises(RequestError, match="peak cannot be passed"):
+        size_motor(_rig("acrobot"), duration=2.0, peak=1.0)

@@ -9,8 +9,9 @@ geometry of ``docs/conventions.md``:
 
     M(q) q_ddot + c(q, q_dot) + g(q) = S u + Q_f(q_dot),
 
-with the lumped mass matrix of a double pendulum on an (optionally moving) pivot, the Coriolis and centrifugal
-terms c = (dM/dt) q_dot - d(1/2 q_dot' M q_dot)/dq obtained by automatic differentiation of that small M, the gravity
+with the closed-form mass matrix of a double pendulum on an (optionally moving) pivot (``docs/theory.md`` sec. 1;
+Spong, Hutchinson & Vidyasagar 2006, *Robot Modeling and Control*), the Coriolis and centrifugal terms
+c = (dM/dt) q_dot - d(1/2 q_dot' M q_dot)/dq obtained by automatic differentiation of that small M, the gravity
 terms g = dV/dq, and the friction Q_f and input map S taken from the model itself.
 
 Because this is a second derivation of the same physics, :func:`compact_dynamics` evaluates it against

@@ -159,6 +159,7 @@ def size_motor(rig: Rig, *, duration: float, scheme: str = "hermite-simpson", in
         raise RequestError(f"relative_tolerance must be in (0, 1); got {relative_tolerance}")
     if max_factor <= 0:
         raise RequestError(f"max_factor must be > 0; got {max_factor}")
+    _check_options(plan_options, ("duration", "peak", "initial_plan", "strategies", "minimum_time"))
     peaks = rig.peak_inputs
     trials: list[Trial] = []
 
@@ -220,8 +221,9 @@ def tradeoff_curve(rig: Rig, limits: Sequence[float] | np.ndarray, *, scheme: st
     """Minimum swing-up time at each limit, solved in increasing order of limit with warm starts.
 
     A plan within one limit is feasible within every higher limit, so each minimum-time solve starts from the
-    previous limit's plan: the curve is non-increasing by construction of the starting points (the solver can
-    only shorten a feasible start), and a local optimum cannot make a higher limit look slower than a lower one.
+    previous limit's plan, a feasible point with that plan's time: the solver then shortens it, which keeps the
+    curve non-increasing in practice even though every point is a local optimum. A limit whose warm start fails is
+    retried from a minimum-effort plan at the previous time.
 
     Parameters
     ----------
@@ -237,6 +239,7 @@ def tradeoff_curve(rig: Rig, limits: Sequence[float] | np.ndarray, *, scheme: st
     -------
     TradeoffCurve
     """
+    _check_options(plan_options, ("peak", "initial_plan", "minimum_time"))
     table = np.asarray(limits, dtype=float)
     if table.ndim == 1:
         table = np.repeat(table[:, None], rig.n_inputs, axis=1)
@@ -262,6 +265,13 @@ def tradeoff_curve(rig: Rig, limits: Sequence[float] | np.ndarray, *, scheme: st
     times = np.array([p.duration if p.success else np.nan for p in plans])
     return TradeoffCurve(limits=table, minimum_time=times, success=np.array([p.success for p in plans]),
                          plans=tuple(plans), input_names=rig.input_names, input_units=rig.input_units)
+
+
+def _check_options(options: dict, reserved: tuple[str, ...]) -> None:
+    taken = sorted(set(options) & set(reserved))
+    if taken:
+        raise RequestError(f"{', '.join(taken)} cannot be passed through here: the sizing sets "
+                           f"{', '.join(reserved)} itself")
 
 
 def plot_tradeoff(curve: TradeoffCurve, ax=None):

@@ -334,9 +334,10 @@ def simulate(rig: Rig, controller: Controller, x0: np.ndarray, params: np.ndarra
         rec_x[0] = S.T
 
     def buffers(k: int) -> tuple[np.ndarray, ...]:
-        return np.empty((k, n_meas)), np.empty((nq, k)), np.empty((5, k)), np.empty(k, dtype=np.int8)
+        return (np.empty((k, n_meas)), np.empty((nq, k)), np.empty((5, k)), np.empty(k, dtype=np.int8),
+                np.empty((4, nq, k)))
 
-    Y, T, Mon, status = buffers(N)
+    Y, T, Mon, status, work = buffers(N)
 
     def take_reading() -> np.ndarray:
         noise = None
@@ -370,16 +371,16 @@ def simulate(rig: Rig, controller: Controller, x0: np.ndarray, params: np.ndarra
         sampling.limit(u_cmd, S, peak, stall, no_load, joint, nq, T, acc_u, compiled)
         if setup.record:
             rec_u[k, pos] = T[joint].T
-        kernels.advance(S, T, C, h, nsub, Mon, backend)
-        sampling.check(S, Mon, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t + Ts, hold_from,
-                       acc_x, status, compiled)
+        kernels.advance(S, T, C, h, nsub, Mon, backend, work)
+        failed = sampling.check(S, Mon, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t + Ts,
+                                hold_from, acc_x, status, compiled)
         if setup.record:
             rec_x[k + 1, pos] = S.T
+        if failed == 0 and k < n_samples - 1:
+            continue
         ended = status != 0
         if k == n_samples - 1:
             ended[:] = True
-        if not np.any(ended):
-            continue
         done = pos[ended]
         out_status[done] = status[ended]
         out_end[done] = np.where(status[ended] != 0, t + Ts, horizon)
@@ -395,7 +396,7 @@ def simulate(rig: Rig, controller: Controller, x0: np.ndarray, params: np.ndarra
         pos, memory, pipe = pos[keep], memory[keep], pipe[:, :, keep]
         S, C = np.ascontiguousarray(S[:, keep]), np.ascontiguousarray(C[:, keep])
         acc_u, acc_x = np.ascontiguousarray(acc_u[:, keep]), np.ascontiguousarray(acc_x[:, keep])
-        Y, T, Mon, status = buffers(pos.size)
+        Y, T, Mon, status, work = buffers(pos.size)
         if pos.size == 0:
             break
     held = out_status == 0

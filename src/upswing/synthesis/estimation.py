@@ -30,13 +30,13 @@ Default tuning, 2.5 rad/s^2 on the joints and 1 m/s^2 on the cart, chosen by sim
 (``benchmarks/study_estimator_defaults.py``: every demo rig, its own parameter spreads, quantized noisy encoders,
 the nonlinear batch engine with Coulomb friction, 1000 rollouts per setting). The joint setting trades two ways of
 failing to settle: too low and the filter trusts the model so much that its lag lets Coulomb friction drive a large
-limit cycle (the acrobot's elbow hunts by 0.12 rad at 1.5 rad/s^2, 0.15 rad at 1); too high and encoder noise
-passes through to the motor and makes the rates jitter (the acrobot's elbow past 1.4 rad/s at 4, 41 of 1000 runs
-not settled at 5). From 2 to 3 rad/s^2 every demo rig held every run but 4-5 acrobot falls in 1000;
-2.5 is the middle of that window on a log scale. It puts the filter error poles at 43-65 1/s, well above the
-balance loop's dominant poles (1.6-20 1/s). The cart setting barely matters on the demo cart rig (0.3 to 10 m/s^2
-all held every run). A rig with other encoders or friction should be checked with ``upswing verify`` and the key
-set in its file.
+limit cycle (the acrobot's elbow hunts by 0.12 rad at 1.5 rad/s^2 and 172 of 1000 runs do not settle at 1); too high
+and encoder noise passes through to the motor and makes the rates jitter (the acrobot's rates past 1.4 rad/s at 4,
+41 of 1000 runs not settled at 5). From 2 to 3 rad/s^2 every run of every demo rig settled (the acrobot's 4-5 falls
+in 1000, at every setting, follow its parameter draws, not the filter); 2.5 is the middle of that window on a log
+scale. It puts the filter error poles at 43-130 1/s, well above the balance loops' slowest poles (2.4-5.5 1/s). The
+cart setting barely matters on the demo cart rig (0.3 to 10 m/s^2 all held every run). A rig with other encoders
+or friction should be checked with ``upswing verify`` and the key set in its file.
 """
 
 from __future__ import annotations

@@ -187,3 +187,20 @@ def test_hand_over_latches():
     assert np.all(res.inputs[:k] == 0.0)
     assert np.any(res.inputs[k + 20:k + 30] != 0.0)  # still the LQR long after ready went false again
     assert res.held.all()
+
+
+def test_verify_runs_the_gains_and_filter_that_balance_exports():
+    # The default controller of `upswing verify` against the JSON `upswing balance` writes for firmware: same
+    # gain, same Kalman filter matrices, bit for bit (both come from one design; JSON keeps doubles exactly).
+    import json
+
+    from upswing.export.balance_files import balance_fields
+    from upswing.export.jsonable import dumps
+    from upswing.synthesis.study import study_balance
+
+    r = rig("cart-double")
+    exported = json.loads(dumps(balance_fields(r, study_balance(r))))
+    controller = balance_controller(r)
+    assert np.array_equal(np.array(exported["K_discrete"]), controller.K)
+    for name in ("F", "G", "H", "Cxi", "Dy"):
+        assert np.array_equal(np.array(exported["estimators"]["kalman"][name]), getattr(controller.estimator, name))

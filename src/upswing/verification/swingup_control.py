@@ -1,0 +1,155 @@
+"""Swing-up controllers for the batch engine, with the catch: swing-up law, hand-over with hysteresis, balance LQR.
+
+Both swing-up laws follow the controller interface of :mod:`upswing.verification.controllers` and share one
+combinator, :class:`CatchController`, which per rollout and per sample
+
+1. forms the state estimate x_hat: with ``measurement = "state"`` the exact state (y + upright); with encoders the
+   readings for the angles (and cart position) and, for the rates, a filtered backward difference of the readings
+   (angle differences wrapped, first-order low-pass at ``[balance].velocity_cutoff``, default sample_rate / 10,
+   the same filter :func:`upswing.synthesis.estimation.finite_difference_estimator` describes); this estimate is
+   model-free, so it stays valid far from upright, where the balance design's Kalman filter does not;
+2. updates the mode with the hand-over rule of :class:`upswing.synthesis.swingup.tracking.HandoverRule`: balance
+   engages when x_hat' P x_hat <= rho_in and releases only above rho_out > rho_in (hysteresis); a tracking table
+   also engages balance for good once its last row is over (the ``swingup.csv`` contract);
+3. applies the swing-up law or the balance loop. The balance loop is the one ``upswing balance`` exports (discrete
+   LQR and, on encoders, its Kalman filter). Its estimator is seeded at the engaging sample so that its estimate
+   equals the swing-up's x_hat (bumpless transfer: xi = pinv(Cxi) (x_hat - Dy y)), because a linear filter about
+   upright that ran through the swing, fed inputs it did not command, would hand over a wrong estimate.
+
+Swing-up laws (``law(t, X) -> U``, X absolute states (N, n), U (N, m) saturated at peak):
+
+* :func:`tracking_law`: u = u_ff[k] - K[k] (x_hat - x_ref[k]) (angle errors wrapped) for the row k active at t,
+  exactly the ``swingup.csv`` law;
+* :func:`energy_law`: the family's energy-based law of :mod:`upswing.synthesis.swingup.energy`.
+
+Hand-over times: the first sample at which each rollout engaged balance is written to
+:attr:`CatchController.handover_time` (NaN if never), and whether it was balancing at its last sample to
+:attr:`CatchController.balancing_at_end`, both for the rollouts of the latest :meth:`CatchController.start`. The
+simulator keeps a controller's per-rollout state only in ``memory``; the rollout's row at ``start`` travels in a
+memory column so these logs find their row however the simulator compacts the batch. The logs live in the process
+that runs the simulation: use :func:`upswing.verification.simulate.simulate` in-process (as
+:mod:`upswing.verification.manoeuvre` does), not a process pool.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+
+import numpy as np
+
+from upswing.model.equilibria import equilibrium_state
+from upswing.model.modes import measured_states
+from upswing.model.rig import Rig
+from upswing.synthesis.estimation import velocity_cutoff
+from upswing.synthesis.swingup.energy import energy_law_params, energy_swingup_input
+from upswing.synthesis.swingup.tracking import HandoverRule, TrackingTable
+from upswing.verification.controllers import LinearFeedback
+
+Law = Callable[[float, np.ndarray], np.ndarray]
+
+
+def tracking_law(table: TrackingTable) -> Law:
+    """The ``swingup.csv`` law of ``table`` as a batch law (rows past the table's end give u_ff of the last row;
+    :class:`CatchController` never asks for them, it balances by then)."""
+
+    def law(t: float, X: np.ndarray) -> np.ndarray:
+        k = min(int(table.row(t)), table.n_rows - 1)
+        return table.command(np.full(X.shape[0], k), X)
+
+    return law
+
+
+def energy_law(rig: Rig) -> Law:
+    """The rig family's energy-based swing-up law (raises :class:`~upswing.errors.RequestError` where none suits)."""
+    params = energy_law_params(rig)
+
+    def law(t: float, X: np.ndarray) -> np.ndarray:
+        return energy_swingup_input(X, params)
+
+    return law
+
+
+class CatchController:
+    """Swing-up law, hand-over with hysteresis, balance loop (module docstring).
+
+    Parameters
+    ----------
+    rig : Rig
+    law : callable (t, X) -> U
+        The swing-up law on absolute states.
+    balance : LinearFeedback
+        The balance loop (``measurement`` decides this controller's measurement too).
+    rule : HandoverRule
+    table_end : float or None
+        Time [s] after which balance is engaged for good (a tracking table's ``end_time``), or None.
+    """
+
+    def __init__(self, rig: Rig, law: Law, balance: LinearFeedback, rule: HandoverRule,
+                 table_end: float | None = None) -> None:
+        self.law, self.balance, self.rule, self.table_end = law, balance, rule, table_end
+        self.sample_rate = balance.sample_rate
+        self.measurement = balance.measurement
+        self.x_eq = equilibrium_state(rig, "upright")
+        self.n = rig.n_states
+        self.p = len(measured_states(rig)) if self.measurement == "encoders" else self.n
+        is_angle = np.array([s in ("theta1", "theta2") for s in measured_states(rig)])
+        self._angle_cols = np.flatnonzero(is_angle)
+        fc = velocity_cutoff(rig, self.sample_rate)
+        self._alpha = math.exp(-2.0 * math.pi * fc / self.sample_rate)  # low-pass pole of the rate filter
+        est = balance.estimator
+        self._seed_map = None if est is None else np.linalg.pinv(np.asarray(est.Cxi, dtype=float)).T
+        self._Dyt = None if est is None else np.asarray(est.Dy, dtype=float).T
+        self.handover_time = np.zeros(0)
+        self.balancing_at_end = np.zeros(0, dtype=bool)
+
+    # memory columns: [row id, mode, y_prev (p), rate (p) (encoders only), balance memory]
+    def _split(self, memory: np.ndarray) -> tuple[np.ndarray, ...]:
+        p = self.p if self.measurement == "encoders" else 0
+        return memory[:, 0], memory[:, 1], memory[:, 2:2 + p], memory[:, 2 + p:2 + 2 * p], memory[:, 2 + 2 * p:]
+
+    def start(self, y: np.ndarray) -> np.ndarray:
+        N = y.shape[0]
+        self.handover_time = np.full(N, np.nan)
+        self.balancing_at_end = np.zeros(N, dtype=bool)
+        parts = [np.arange(N, dtype=float)[:, None], np.zeros((N, 1))]
+        if self.measurement == "encoders":
+            parts += [y.copy(), np.zeros_like(y)]
+        parts.append(self.balance.start(y))
+        return np.hstack(parts)
+
+    def _estimate(self, y: np.ndarray, y_prev: np.ndarray, rate: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        if self.measurement == "state":
+            return y + self.x_eq, rate
+        dy = y - y_prev
+        a = self._angle_cols
+        dy[:, a] = (dy[:, a] + math.pi) % (2.0 * math.pi) - math.pi
+        rate = self._alpha * rate + (1.0 - self._alpha) * dy * self.sample_rate
+        return np.hstack([y, rate]) + self.x_eq, rate
+
+    def step(self, t: float, y: np.ndarray, memory: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        ids, mode, y_prev, rate, mem_b = self._split(memory)
+        x_hat, rate = self._estimate(y, y_prev, rate)
+        before = mode > 0.5
+        balancing = self.rule.update(x_hat, before)
+        if self.table_end is not None and t >= self.table_end - 1e-9:
+            balancing[:] = True
+        engage = balancing & ~before
+        if engage.any():
+            mem_b = mem_b.copy()
+            fresh = self.balance.start(y[engage])
+            if self._seed_map is not None:
+                n_xi = self.balance.n_xi
+                fresh[:, :n_xi] = (x_hat[engage] - self.x_eq - y[engage] @ self._Dyt) @ self._seed_map
+            mem_b[engage] = fresh
+            rows = ids[engage].astype(int)
+            first = np.isnan(self.handover_time[rows])
+            self.handover_time[rows[first]] = t
+        u_b, mem_b = self.balance.step(t, y, mem_b)
+        u = np.where(balancing[:, None], u_b, self.law(t, x_hat))
+        self.balancing_at_end[ids.astype(int)] = balancing
+        parts = [ids[:, None], balancing[:, None].astype(float)]
+        if self.measurement == "encoders":
+            parts += [y, rate]
+        parts.append(mem_b)
+        return u, np.hstack(parts)

@@ -1,6 +1,7 @@
 """The swing-up table for firmware: ``swingup.csv``, the same table as ``swingup.json``, and a C header.
 
-``swingup.csv`` (a contract, issue 5): ``#`` comment lines first (rig name and content hash, tool version,
+``swingup.csv`` (a contract, issue 5): ``#`` comment lines first (the header block of :mod:`upswing.export.header`
+that every export shares: rig name and content hash, tool version,
 conventions, the law, units, cautions), then one header row and one row per controller sample with the columns
 
     t, <state names> (the reference x_ref), <input names> (the feed-forward u_ff), K_<input>_<state> ...
@@ -26,12 +27,13 @@ from typing import Any
 
 import numpy as np
 
-from upswing import __version__
 from upswing.commands.common import rig_header, safety_block
 from upswing.errors import RequestError
+from upswing.export.header import ExportHeader, c_comment, export_header, hash_comment, header_json
+from upswing.export.header import header_lines as export_header_lines
 from upswing.export.jsonable import dumps
-from upswing.model.rig import INPUT_UNITS, STATE_UNITS, Rig
-from upswing.safety import CAUTIONS, GOVERNING, STANDARDS
+from upswing.model.rig import INPUT_UNITS, Rig
+from upswing.safety import CAUTIONS, GOVERNING
 from upswing.synthesis.swingup.tracking import TrackingTable
 
 CSV_NAME = "swingup.csv"
@@ -67,37 +69,33 @@ def _check(rig: Rig, table: TrackingTable) -> None:
             raise RequestError(f"the table's {name} holds non-finite values; it cannot be exported")
 
 
-def header_lines(rig: Rig, table: TrackingTable) -> list[str]:
-    """The comment block shared by the CSV and the C header, one string per line (no comment marker).
-
-    Rig identity (name, source, SHA-256 of the rig file), tool version, sample rate and size, the law, conventions,
-    units, limits, cautions and the standards they refer to.
-    """
-    units = [f"{s} {STATE_UNITS[s]}" for s in table.state_names] + [f"{u} {INPUT_UNITS[u]}"
-                                                                     for u in table.input_names]
+def swingup_header(rig: Rig, table: TrackingTable) -> ExportHeader:
+    """The export header (:mod:`upswing.export.header`, the block every export starts with) for this table, with
+    the table's own facts as notes: sample rate and size, the law, the peaks, and every caution."""
     peaks = ", ".join(f"{u} {p:g} {INPUT_UNITS[u]}" for u, p in zip(table.input_names, table.peak, strict=True))
-    lines = [
-        "upswing swing-up table",
-        f"rig: {rig.name} ({rig.source}), family {rig.family}",
-        f"rig file sha256: {rig.content_hash or 'unknown (rig not loaded from a file)'}",
-        f"tool: upswing {__version__}",
+    notes = [
+        f"rig family: {rig.family}",
         f"sample rate: {table.sample_rate:g} Hz; rows: {table.n_rows}; t from {table.t[0]:g} s; balance takes over "
         f"at t = {table.end_time:g} s",
         f"law: {LAW_TEXT}",
         f"conventions: {CONVENTIONS_TEXT}",
-        "units: t s; " + "; ".join(units) + "; K_<input>_<state> in input unit per state unit",
+        "units: t s; K_<input>_<state> in input unit per state unit",
         f"peak: {peaks}",
     ]
-    lines += [f"caution: {c}" for c in CAUTIONS if c != GOVERNING]
-    lines += [f"standard: {number} ({subject})" for number, subject in STANDARDS.items()]
-    lines.append(f"governing: {GOVERNING}")
-    return lines
+    notes += [f"caution: {c}" for c in CAUTIONS if c != GOVERNING]
+    return export_header(rig, "swing-up table (time-varying LQR along the reference)", notes=notes)
+
+
+def header_lines(rig: Rig, table: TrackingTable) -> list[str]:
+    """The comment block shared by the CSV and the C header, one string per line (no comment marker): the lines
+    of :func:`upswing.export.header.header_lines` for :func:`swingup_header`."""
+    return export_header_lines(swingup_header(rig, table))
 
 
 def csv_text(rig: Rig, table: TrackingTable) -> str:
     """The full text of ``swingup.csv`` (numbers in shortest round-trip form)."""
     _check(rig, table)
-    out = [f"# {line}" for line in header_lines(rig, table)]
+    out = [hash_comment(swingup_header(rig, table)).rstrip("\n")]
     out.append(",".join(csv_columns(table)))
     n_gain = table.K.shape[1] * table.K.shape[2]
     data = np.hstack([table.t[:, None], table.x_ref, table.u_ff, table.K.reshape(table.n_rows, n_gain)])
@@ -111,6 +109,7 @@ def json_object(rig: Rig, table: TrackingTable) -> dict[str, Any]:
     return {
         **rig_header(rig),
         "kind": "swingup table",
+        "export_header": header_json(swingup_header(rig, table)),
         "law": LAW_TEXT,
         "conventions": CONVENTIONS_TEXT,
         "sample_rate": table.sample_rate,
@@ -151,7 +150,7 @@ def c_header_text(rig: Rig, table: TrackingTable) -> str:
     """The C99 header: macros for the sizes and rate, ``extern const float`` declarations, and the definitions
     behind ``#ifdef UPSWING_SWINGUP_TABLE_DEFINE``."""
     _check(rig, table)
-    comment = "\n".join(f" * {line.replace('*/', '* /')}" for line in header_lines(rig, table))
+    comment = c_comment(swingup_header(rig, table))[3:-4].rstrip("\n")  # the lines, inside this file's comment
     n, m = len(table.state_names), len(table.input_names)
     return f"""/*
 {comment}

@@ -1,0 +1,352 @@
+"""Verification of the whole swing-up manoeuvre: swing-up law, catch, balance, on the uncertain nonlinear rig.
+
+:func:`verify_swingup` runs, in order:
+
+1. the swing-up law: ``"optimal"`` tracks an optimized trajectory with its time-varying LQR table (exactly the
+   ``swingup.csv`` law); ``"energy"`` runs the family's energy-based law (:mod:`upswing.synthesis.swingup.energy`);
+2. the hand-over level rho_in: the rig file's ``[swingup].handover_level``, else :data:`HANDOVER_FRACTION` of the
+   balance controller's simulated region of attraction (:mod:`upswing.verification.roa`; a margin because the
+   catch starts from a moving state whose rates are estimated by finite differences), and rho_out =
+   ``[swingup].release_factor`` rho_in (hysteresis);
+3. a nominal run (nominal parameters, the exact start, encoders with quantization and noise) and a Monte Carlo run
+   over the rig's ``[uncertainty]`` (parameters drawn as :func:`upswing.verification.montecarlo.sample_parameters`
+   does, starts uniform in a small box around the start state), with sampling, saturation and the motor line,
+   quantization, noise and the computation delay of the batch engine (:mod:`upswing.verification.simulate`);
+4. budgets and hazard notes (:mod:`upswing.verification.budgets`, :mod:`upswing.verification.hazards`, plus notes
+   on the swing-up itself).
+
+Success (per rollout) = caught and held: balance engaged at the last sample, no failure, and the state inside the
+settling box for the final second of the horizon. The horizon is the plan's duration plus ``settle`` seconds
+(optimal), or ``horizon`` (energy, default :data:`ENERGY_HORIZON`).
+
+The verdict applies :func:`upswing.verification.verdict.decide` (lower end of the 95 % Wilson interval against the
+required success rate, and every rated budget within its limit) with one change: time in saturation is reported
+but not judged, because a swing-up rides its input limit by design (the balance-loop policy of
+:data:`upswing.verification.budgets.SATURATION_SHARE` does not apply to it).
+
+The rollouts run in this process, in chunks, so that the controller's hand-over log is read directly
+(:mod:`upswing.verification.swingup_control`); a swing-up check needs hundreds, not hundreds of thousands, of them.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from upswing.errors import RequestError, SynthesisError
+from upswing.model.equilibria import equilibrium_state
+from upswing.model.rig import Rig
+from upswing.safety import CAUTIONS
+from upswing.synthesis.balance import design_balance
+from upswing.synthesis.swingup import SwingUpPlan, plan_swingup
+from upswing.synthesis.swingup.energy import energy_law_params
+from upswing.synthesis.swingup.tracking import TrackingTable, handover_rule, tvlqr_from_reference
+from upswing.verification.budgets import Budget, compute_budgets
+from upswing.verification.controllers import MEASUREMENTS, balance_controller
+from upswing.verification.hazards import HazardNote, hazard_notes
+from upswing.verification.montecarlo import InitialOffsets, sample_offsets, sample_parameters
+from upswing.verification.roa import estimate_region
+from upswing.verification.simulate import STATUS, Bounds, Rollouts, SimulationSetup, simulate
+from upswing.verification.stats import wilson_interval
+from upswing.verification.swingup_control import CatchController, energy_law, tracking_law
+from upswing.verification.verdict import Decision, decide
+
+METHODS = ("optimal", "energy")
+STREAM = 5  # noise and draw stream of swing-up runs (the balance studies use 1-4)
+NOMINAL_STREAM = 6
+HANDOVER_FRACTION = 0.5
+ENERGY_HORIZON = 15.0
+CHUNK = 128
+START_OFFSETS = InitialOffsets(angle=0.02, rate=0.05, cart=0.01, cart_rate=0.02)
+
+SWINGUP_CAUTIONS: tuple[str, ...] = (
+    "A swing-up moves the links through their whole circle at speed: nobody inside the swept zone, guards closed, "
+    "and the first runs at reduced peak with an emergency stop within reach (ISO 13850, ISO 14120).",
+    "The success rate is a simulation of the model with the rig file's uncertainty; unmodelled effects (backlash, "
+    "cable drag, a loose clamp) are not in it. Watch the first real swing-ups from outside the guard.",
+    *CAUTIONS,
+)
+
+
+@dataclass(frozen=True)
+class NominalRun:
+    """The nominal rollout: nominal parameters, the exact start, encoders as configured.
+
+    Attributes
+    ----------
+    status : str
+        One of :data:`upswing.verification.simulate.STATUS`.
+    caught : bool
+        Caught and held (the success definition of the module docstring).
+    handover_time : float
+        First engagement of the balance controller [s] (NaN if never).
+    times : ndarray (K + 1,)
+    states : ndarray (K + 1, n_states)
+    inputs : ndarray (K, n_inputs)
+        Applied inputs [N m or N].
+    """
+
+    status: str
+    caught: bool
+    handover_time: float
+    times: np.ndarray
+    states: np.ndarray
+    inputs: np.ndarray
+
+
+@dataclass(frozen=True)
+class SwingUpVerification:
+    """Everything :func:`verify_swingup` found.
+
+    Attributes
+    ----------
+    method : str
+        ``"optimal"`` or ``"energy"``.
+    law : str
+        The swing-up law in words.
+    plan : SwingUpPlan or None
+        The optimized trajectory (``"optimal"``).
+    table : TrackingTable or None
+        Its time-varying LQR table (``"optimal"``): what ``swingup.csv`` holds.
+    measurement : str
+    rho_in, rho_out : float
+        Hand-over levels of the balance cost-to-go [-].
+    rho_source : str
+        Where rho_in came from, in words.
+    horizon_s : float
+        Simulated time per rollout [s].
+    nominal : NominalRun
+    rollouts, seed, successes : int
+    success_rate : float
+    success_interval : tuple of float
+        95 % Wilson interval.
+    outcomes : dict
+        Count per outcome ("caught and held", "not caught", and the simulator's failure statuses).
+    handover_times : ndarray (rollouts,)
+        Per rollout, the first hand-over [s] (NaN if never).
+    handover_summary : dict
+        Over the successful rollouts: ``min``, ``median``, ``p95``, ``max`` [s] (NaN when none succeeded).
+    budgets : tuple of Budget
+    hazards : tuple of HazardNote
+    verdict : str
+        ``"pass"`` or ``"fail"``.
+    reasons : tuple of str
+    decision : Decision
+    required_success : float
+    results : Rollouts
+    parameters : ndarray (rollouts, 16)
+    simulate_s, total_s : float
+        Wall time of the batch simulation and of the whole call [s].
+    cautions : tuple of str
+    """
+
+    method: str
+    law: str
+    plan: SwingUpPlan | None
+    table: TrackingTable | None
+    measurement: str
+    rho_in: float
+    rho_out: float
+    rho_source: str
+    horizon_s: float
+    nominal: NominalRun
+    rollouts: int
+    seed: int
+    successes: int
+    success_rate: float
+    success_interval: tuple[float, float]
+    outcomes: dict[str, int]
+    handover_times: np.ndarray
+    handover_summary: dict[str, float]
+    budgets: tuple[Budget, ...]
+    hazards: tuple[HazardNote, ...]
+    verdict: str
+    reasons: tuple[str, ...]
+    decision: Decision
+    required_success: float
+    results: Rollouts
+    parameters: np.ndarray
+    simulate_s: float
+    total_s: float
+    cautions: tuple[str, ...] = SWINGUP_CAUTIONS
+
+
+def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, seed: int = 0,
+                   plan: SwingUpPlan | None = None, duration: float | None = None, minimum_time: bool = False,
+                   measurement: str = "encoders", handover_level: float | None = None, settle: float = 3.0,
+                   horizon: float | None = None, required_success: float | None = None,
+                   roa_samples: int = 300) -> SwingUpVerification:
+    """Verify a swing-up with catch and balance on the uncertain nonlinear rig (see the module docstring).
+
+    Parameters
+    ----------
+    rig : Rig
+    method : {"optimal", "energy"}
+    rollouts : int
+        Monte Carlo rollouts (>= 1).
+    seed : int
+        Seed of every random draw (>= 0); the same seed gives the same numbers.
+    plan : SwingUpPlan, optional
+        A successful plan to track (``"optimal"``); default :func:`upswing.synthesis.swingup.plan_swingup`
+        ``(rig, duration=duration, minimum_time=minimum_time)``.
+    duration, minimum_time
+        Passed to the planner when ``plan`` is None.
+    measurement : {"encoders", "state"}
+        Encoders (quantized, noisy; rates by filtered differences, the balance loop's Kalman filter after the
+        catch) or the exact state (a baseline).
+    handover_level : float, optional
+        rho_in [-]; default ``[swingup].handover_level``, else :data:`HANDOVER_FRACTION` of the region of attraction.
+    settle : float
+        Seconds simulated after the plan ends (``"optimal"``) [s], > 1 (the hold window is 1 s).
+    horizon : float, optional
+        Simulated seconds per rollout for ``"energy"`` [s]; default :data:`ENERGY_HORIZON`.
+    required_success : float, optional
+        Fraction in (0, 1); default ``[verification].required_success``.
+    roa_samples : int
+        Starts of the region-of-attraction estimate's first round (when it is needed).
+
+    Raises
+    ------
+    RequestError
+        For a bad argument, or ``"energy"`` on a family without an energy law (the message says why).
+    SynthesisError
+        When no swing-up trajectory is found (the planner's message says what to try), or the balance controller's
+        region of attraction is empty.
+    """
+    start_clock = time.perf_counter()
+    if method not in METHODS:
+        raise RequestError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
+    if measurement not in MEASUREMENTS:
+        raise RequestError(f"measurement must be one of {', '.join(MEASUREMENTS)}; got {measurement!r}")
+    if isinstance(rollouts, bool) or not isinstance(rollouts, (int, np.integer)) or rollouts < 1:
+        raise RequestError(f"rollouts must be a whole number >= 1; got {rollouts!r}")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise RequestError(f"seed must be a whole number >= 0; got {seed!r}")
+    if not (math.isfinite(settle) and settle > 1.0):
+        raise RequestError(f"settle must be more than the 1 s hold window; got {settle!r} s")
+    required = rig.verification.required_success if required_success is None else float(required_success)
+    if not 0.0 < required < 1.0:
+        raise RequestError(f"the required success rate must be a fraction in (0, 1); got {required:g}")
+
+    design = design_balance(rig)
+    balance = balance_controller(rig, measurement=measurement, design=design)
+    table = None
+    if method == "optimal":
+        if plan is None:
+            plan = plan_swingup(rig, duration=duration, minimum_time=minimum_time)
+        plan.require_success()
+        table = tvlqr_from_reference(rig, plan.sample, plan.duration)
+        law, law_text = tracking_law(table), (f"time-varying LQR tracking of an optimized trajectory "
+                                              f"({plan.duration:.3g} s, {table.n_rows} rows at "
+                                              f"{table.sample_rate:g} Hz)")
+        horizon_s = table.end_time + settle
+        start_state = plan.start
+    else:
+        params = energy_law_params(rig)
+        law, law_text = energy_law(rig), f"{params.law} ({params.family}); limitation: {params.limitation}"
+        horizon_s = ENERGY_HORIZON if horizon is None else float(horizon)
+        if not (math.isfinite(horizon_s) and horizon_s > 1.0):
+            raise RequestError(f"horizon must be more than the 1 s hold window; got {horizon_s!r} s")
+        start_state = equilibrium_state(rig, "hanging")
+
+    setup = SimulationSetup(horizon=horizon_s, delay_samples=design.delay_samples, bounds=Bounds(angle=None))
+    level = rig.swingup.handover_level if handover_level is None else float(handover_level)
+    if level is not None:
+        source = ("[swingup].handover_level of the rig file" if handover_level is None
+                  else "given by the caller")
+    else:
+        region = estimate_region(rig, balance, design, seed=seed, samples=roa_samples, workers=1,
+                                 setup=SimulationSetup(horizon=4.0, delay_samples=design.delay_samples))
+        if not region.rho > 0:
+            raise SynthesisError(f"{rig.source}: the balance controller caught none of the sampled starts near "
+                                 "upright, so there is nothing to hand a swing-up over to; verify the balance "
+                                 "design first (upswing verify)")
+        level = HANDOVER_FRACTION * region.rho
+        source = (f"{HANDOVER_FRACTION:g} x the balance controller's simulated region of attraction "
+                  f"(rho = {region.rho:.4g} from {region.samples} held starts)")
+    rule = handover_rule(rig, level)
+    controller = CatchController(rig, law, balance, rule, None if table is None else table.end_time)
+
+    # --- nominal run -------------------------------------------------------------------------------------------
+    nominal = simulate(rig, controller, start_state[None, :], setup=SimulationSetup(
+        horizon=horizon_s, delay_samples=design.delay_samples, bounds=Bounds(angle=None), record=True),
+        seed=seed, stream=NOMINAL_STREAM)
+    nominal_caught = bool(nominal.held[0] and controller.balancing_at_end[0])
+    nominal_run = NominalRun(status=STATUS[int(nominal.status[0])], caught=nominal_caught,
+                             handover_time=float(controller.handover_time[0]), times=nominal.times,
+                             states=nominal.states[:, 0], inputs=nominal.inputs[:, 0])
+
+    # --- Monte Carlo ---------------------------------------------------------------------------------------------
+    rng = np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(STREAM, 0)))
+    P, _ = sample_parameters(rig, int(rollouts), rng)
+    x0 = start_state + sample_offsets(rig, int(rollouts), START_OFFSETS, rng)
+    parts, times, at_end = [], [], []
+    sim_clock = time.perf_counter()
+    for block, lo in enumerate(range(0, int(rollouts), CHUNK)):
+        hi = min(lo + CHUNK, int(rollouts))
+        parts.append(simulate(rig, controller, x0[lo:hi], P[lo:hi], setup=setup, seed=seed, stream=STREAM,
+                              block=block, ids=np.arange(lo, hi)))
+        times.append(controller.handover_time.copy())
+        at_end.append(controller.balancing_at_end.copy())
+    simulate_s = time.perf_counter() - sim_clock
+    results = Rollouts.concatenate(parts)
+    handover_times = np.concatenate(times)
+    caught = results.held & np.concatenate(at_end)
+    successes = int(caught.sum())
+    outcomes = {"caught and held": successes}
+    not_caught = int(np.sum(results.held & ~caught))
+    if not_caught:
+        outcomes["held but not by the balance controller"] = not_caught
+    for k, name in enumerate(STATUS):
+        count = int(np.sum(results.status == k)) if name != "held" else 0
+        if count:
+            outcomes[name] = count
+    ok_times = handover_times[caught]
+    summary = {key: float(f(ok_times)) if ok_times.size else math.nan for key, f in (
+        ("min", np.min), ("median", np.median), ("p95", lambda a: np.percentile(a, 95)), ("max", np.max))}
+
+    # --- budgets, hazards, verdict -------------------------------------------------------------------------------
+    budgets = compute_budgets(rig, results.subset(caught) if successes else results, horizon_s,
+                              hold_s=setup.settling.hold)
+    judged = tuple(b for b in budgets if not b.name.endswith(".saturation_time"))
+    decision = decide(successes, int(rollouts), judged, required, outcomes=outcomes)
+    hazards = _hazards(rig, budgets, successes / int(rollouts), summary)
+    return SwingUpVerification(
+        method=method, law=law_text, plan=plan if method == "optimal" else None, table=table,
+        measurement=measurement, rho_in=rule.rho_in, rho_out=rule.rho_out, rho_source=source, horizon_s=horizon_s,
+        nominal=nominal_run, rollouts=int(rollouts), seed=int(seed), successes=successes,
+        success_rate=successes / int(rollouts), success_interval=wilson_interval(successes, int(rollouts)),
+        outcomes=outcomes, handover_times=handover_times, handover_summary=summary, budgets=budgets,
+        hazards=hazards, verdict=decision.verdict, reasons=decision.reasons, decision=decision,
+        required_success=required, results=results, parameters=P, simulate_s=simulate_s,
+        total_s=time.perf_counter() - start_clock)
+
+
+def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float,
+             summary: dict[str, float]) -> tuple[HazardNote, ...]:
+    """The verification engine's notes, with the balance-only ones (tip speed while balancing, the drop-out
+    study, which is not run here) replaced by notes on the swing-up."""
+    by = {b.name: b for b in budgets}
+    general = hazard_notes(rig, budgets, rho_summary="the hand-over level", success_rate=success_rate,
+                           dropout_ms=None, dropout_tested_ms=())
+    keep = [n for n in general if n.topic not in ("tip speed and energy", "sensor drop-out", "governing")]
+    catch = (f"the balance controller took over after {summary['median']:.2f} s (median; 95th percentile "
+             f"{summary['p95']:.2f} s)" if math.isfinite(summary["median"]) else "no rollout was caught")
+    keep.insert(1, HazardNote(
+        "swing-up speed and energy",
+        f"During the swing-up the tip reached {by['tip.peak_speed'].value:.2f} m/s and the links carried up to "
+        f"{by['links.peak_kinetic_energy'].value:.3g} J; {catch}. A missed catch leaves the links falling or "
+        "whirling with that energy: the drive must stop (stop category 0 or 1) when the catch has not happened by "
+        "a set time or a speed leaves its window.",
+        ("ISO 12100", "IEC 60204-1", "ISO 13850", "ISO 14120")))
+    keep.append(HazardNote(
+        "sensor fault during swing-up",
+        "The swing-up law and the catch act on the encoder readings at full speed; a frozen or jumping reading "
+        "sends the links the wrong way with full effort. The firmware must detect stale or implausible encoder "
+        "data and remove drive power; treat that check as a safety function and rate it.",
+        ("IEC 60204-1", "ISO 13849-1")))
+    keep.append(next(n for n in general if n.topic == "governing"))
+    return tuple(keep)

@@ -1,0 +1,92 @@
+"""verify_swingup: the whole manoeuvre (tracked swing-up, catch, balance) on the demo rigs under their uncertainty.
+
+One optimized plan per demo rig is shared by the module (module-scoped fixture; a plan costs 1-3 s). The Monte
+Carlo runs use 64 rollouts: enough that a 95 % Wilson interval separates "almost always" from "often" (at 64/64 the
+lower end is 0.944, at 44/64 it is 0.57; Wilson 1927), while the batch engine needs well under a second for them.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from rigs import ROOT
+
+from upswing.errors import RequestError
+from upswing.model.rig import load_rig
+from upswing.synthesis.swingup import plan_swingup
+from upswing.verification.manoeuvre import verify_swingup
+from upswing.verification.stats import wilson_interval
+
+ROLLOUTS = 64
+
+
+@pytest.fixture(scope="module")
+def acrobot():
+    rig = load_rig(ROOT / "scenarios" / "acrobot.toml")
+    return rig, plan_swingup(rig).require_success()
+
+
+@pytest.fixture(scope="module")
+def cart():
+    rig = load_rig(ROOT / "scenarios" / "cart-double.toml")
+    return rig, plan_swingup(rig).require_success()
+
+
+def _common_checks(rig, v):
+    # The reported interval is the Wilson score interval of the reported count (Wilson 1927, the published
+    # formula, implemented and checked against it in tests/verification/test_verdict.py).
+    assert v.success_interval == pytest.approx(wilson_interval(v.successes, v.rollouts), abs=1e-12)
+    assert v.successes == v.outcomes["caught and held"] and sum(v.outcomes.values()) == v.rollouts
+    ok = v.handover_times[~np.isnan(v.handover_times)]
+    # A hand-over happens within the run, and for tracking no later than the table's last row (the CSV contract).
+    assert np.all((ok >= 0) & (ok <= v.table.end_time + 1e-9))
+    peak = {b.name: b for b in v.budgets}[f"{rig.input_names[0]}.peak_effort"]
+    assert peak.value <= rig.peak_inputs[0] * (1 + 1e-12)  # the applied input never exceeds peak (saturation)
+    assert any(h.topic == "swing-up speed and energy" for h in v.hazards)
+    assert any("Local codes" in c for c in v.cautions)
+
+
+def test_cart_rig_tracked_swingup_is_caught_under_uncertainty(cart):
+    rig, plan = cart
+    v = verify_swingup(rig, plan=plan, rollouts=ROLLOUTS, seed=1)
+    _common_checks(rig, v)
+    # Measured: 100 of 100 rollouts caught and held (seed 0), 64 of 64 here. The test asks for a Wilson lower end
+    # of at least 0.9, i.e. at most one miss in 64: a regression to "often" fails it.
+    assert v.success_interval[0] >= 0.9
+    assert v.nominal.caught and math.isfinite(v.nominal.handover_time)
+    assert v.nominal.handover_time <= plan.duration + 1e-9
+
+
+def test_acrobot_tracked_swingup_success_rate(acrobot):
+    rig, plan = acrobot
+    v = verify_swingup(rig, plan=plan, rollouts=ROLLOUTS, seed=1)
+    _common_checks(rig, v)
+    # Measured with the demo rig's +-15 % link inertias (uniform): 69 of 100 caught (seed 0); the misses follow
+    # link1.inertia (point-biserial r = 0.43): one elbow motor cannot pull the passive link back onto the
+    # reference once it drifts. The nominal plant is caught. The test states what the rig shows: the point
+    # estimate is at least one half and the Wilson interval excludes 0.95 (the tracked swing-up is NOT reliable
+    # on this rig under its declared uncertainty, and the verdict says so).
+    assert v.nominal.caught
+    assert v.success_rate >= 0.5
+    assert v.success_interval[1] < 0.95 and v.verdict == "fail"
+    assert any("success rate" in r for r in v.reasons)
+
+
+def test_handover_level_from_the_region_of_attraction_or_the_caller(cart):
+    rig, plan = cart
+    v = verify_swingup(rig, plan=plan, rollouts=4, seed=0, handover_level=50.0)
+    assert v.rho_in == 50.0 and v.rho_out == pytest.approx(50.0 * rig.swingup.release_factor)
+    assert "caller" in v.rho_source
+
+
+def test_bad_requests_are_refused(cart):
+    rig, plan = cart
+    for kwargs in (dict(method="bogus"), dict(rollouts=0), dict(seed=-1), dict(settle=0.5),
+                   dict(required_success=1.5), dict(measurement="radar")):
+        with pytest.raises(RequestError):
+            verify_swingup(rig, plan=plan, **kwargs)
+    arm = load_rig(ROOT / "scenarios" / "arm-2dof.toml")
+    with pytest.raises(RequestError, match="optimal"):  # no energy law for a fully actuated arm, and it says why
+        verify_swingup(arm, method="energy", rollouts=4)

@@ -312,7 +312,8 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
     budgets = compute_budgets(rig, results.subset(caught) if successes else results, horizon_s,
                               hold_s=setup.settling.hold)
     judged = tuple(b for b in budgets if not b.name.endswith(".saturation_time"))
-    decision = decide(successes, int(rollouts), judged, required, outcomes=outcomes)
+    misses = {k: n for k, n in outcomes.items() if k != "caught and held"}
+    decision = decide(successes, int(rollouts), judged, required, outcomes=misses)
     hazards = _hazards(rig, budgets, successes / int(rollouts), summary)
     return SwingUpVerification(
         method=method, law=law_text, plan=plan if method == "optimal" else None, table=table,
@@ -332,7 +333,16 @@ def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float,
     by = {b.name: b for b in budgets}
     general = hazard_notes(rig, budgets, rho_summary="the hand-over level", success_rate=success_rate,
                            dropout_ms=None, dropout_tested_ms=())
-    keep = [n for n in general if n.topic not in ("tip speed and energy", "sensor drop-out", "governing")]
+    replaced = ("tip speed and energy", "saturation", "sensor drop-out", "governing")
+    keep = [n for n in general if n.topic not in replaced]
+    saturation = max((b for b in budgets if b.name.endswith(".saturation_time")), key=lambda b: b.value)
+    keep.append(HazardNote(
+        "saturation",
+        f"The command was at the actuator limit for up to {saturation.value:.3g} s "
+        f"({saturation.name.split('.')[0]}) in the caught runs: the swing-up relies on the drive delivering its "
+        f"full rated effort, and {1.0 - success_rate:.1%} of the Monte Carlo runs were not caught. A missed catch "
+        "is a normal event on this rig: the drive must stop safely (stop category 0 or 1) when it happens.",
+        ("IEC 60204-1", "ISO 13850")))
     catch = (f"the balance controller took over after {summary['median']:.2f} s (median; 95th percentile "
              f"{summary['p95']:.2f} s)" if math.isfinite(summary["median"]) else "no rollout was caught")
     keep.insert(1, HazardNote(

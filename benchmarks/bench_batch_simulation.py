@@ -9,6 +9,9 @@ dominated by the sign switch and all three solve the same smooth problem).
 (c) a compiled reference built here and not shipped: a plain C RK4 loop of the same model (one rollout at a time,
     scalar libm sin/cos, gcc -O2, OpenMP over rollouts on the same cores); numba's scalar loop if gcc is missing.
 
+Last, 100,000 rollouts x 5 s twice: at the fixed 2 kHz step, and at the step ``upswing verify`` uses for this rig
+after its step-doubling accuracy check.
+
 Run:  PYTHONPATH=src python benchmarks/bench_batch_simulation.py [--quick]
 Times are wall times on this machine under whatever else runs on it; only ratios from one process mean much.
 """
@@ -35,6 +38,7 @@ from upswing.synthesis.balance import design_balance
 from upswing.verification.controllers import balance_controller
 from upswing.verification.parallel import run_rollouts
 from upswing.verification.simulate import Bounds, SimulationSetup
+from upswing.verification.verdict import check_integration
 
 RIG = Path(__file__).resolve().parents[1] / "scenarios" / "acrobot.toml"
 RATE, HORIZON, SUBSTEPS = 500.0, 5.0, 4
@@ -101,8 +105,9 @@ def naive(rig, K, x0: np.ndarray, horizon: float) -> tuple[float, np.ndarray]:
     return time.perf_counter() - start, np.array(finals)
 
 
-def engine(rig, controller, x0: np.ndarray, horizon: float, workers: int) -> tuple[float, object]:
-    setup = SimulationSetup(horizon=horizon, substeps=SUBSTEPS, bounds=Bounds(angle=None))
+def engine(rig, controller, x0: np.ndarray, horizon: float, workers: int, substeps: int = SUBSTEPS
+           ) -> tuple[float, object]:
+    setup = SimulationSetup(horizon=horizon, substeps=substeps, bounds=Bounds(angle=None))
     params = np.tile(rig.parameter_vector(), (x0.shape[0], 1))
     res, seconds = run_rollouts(rig, controller, x0, params, setup=setup, seed=0, stream=0, workers=workers)
     return seconds, res
@@ -186,13 +191,22 @@ def main() -> None:
           f"(offsets up to 0.02 rad): {worst:.2g} (rad, rad/s)")
 
     if not args.quick:
+        # Twice: at the fixed 2 kHz step of the comparison above, and at the step `upswing verify` itself uses for
+        # this rig (choose_substeps, confirmed by the step-doubling check of check_integration, which halves the
+        # step while the estimated error exceeds its tolerance).
+        check = check_integration(rig, controller, SimulationSetup(horizon=HORIZON), seed=0)
         N = 100_000
-        t, res = engine(rig, controller, offsets(N, seed=3), HORIZON, args.workers)
-        peak_self = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-        peak_children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
-        print(f"100,000 rollouts x {HORIZON:g} s: {t:.1f} s wall on {args.workers} processes; peak memory "
-              f"{peak_self:.0f} MiB (main process), {peak_children:.0f} MiB (largest worker); "
-              f"{int(res.held.sum())} held")
+        for nsub, why in ((SUBSTEPS, "fixed 2 kHz step"),
+                          (check.substeps, f"the step verify chooses, error estimate {check.error_estimate:.1g} "
+                                           f"rad against {check.tolerance:g}")):
+            load = os.getloadavg()[0]
+            t, res = engine(rig, controller, offsets(N, seed=3), HORIZON, args.workers, substeps=nsub)
+            peak_self = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+            peak_children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+            print(f"100,000 rollouts x {HORIZON:g} s, RK4 {nsub} steps/sample ({why}): {t:.1f} s wall on "
+                  f"{args.workers} processes (load average {load:.2f} before, {os.getloadavg()[0]:.2f} after); "
+                  f"peak memory {peak_self:.0f} MiB (main process), {peak_children:.0f} MiB (largest worker); "
+                  f"{int(res.held.sum())} held")
     sys.stdout.flush()
 
 

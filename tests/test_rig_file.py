@@ -83,6 +83,12 @@ BAD_INPUTS = [
     ("negative spread", edit("uncertainty.link1", {"mass": -0.1}), "uncertainty.link1.mass", "[0, 0.9]"),
     ("unknown spread", edit("uncertainty.link1", {"mas": 0.1}), "uncertainty.link1.mas", 'did you mean "mass"'),
     ("encoder counts as float", edit("sensors.encoder_counts", 4096.5), "sensors.encoder_counts", "integer"),
+    ("required success of one", edit("verification.required_success", 1.0), "verification.required_success",
+     "(0, 1)"),
+    ("required success zero", edit("verification.required_success", 0.0), "verification.required_success",
+     "(0, 1)"),
+    ("required success typo", edit("verification.required_sucess", 0.9), "verification.required_sucess",
+     'did you mean "required_success"'),
 ]
 
 
@@ -94,6 +100,13 @@ def test_bad_input_gets_a_clear_error(table, key, words):
     assert info.value.key == key
     assert message.startswith(f"bench.toml: {key}")
     assert words in message
+
+
+def test_verification_settings_default_and_load():
+    assert rig_from_table(valid_table()).verification.required_success == 0.95
+    assert rig_from_table(edit("verification.required_success", 0.99)).verification.required_success == 0.99
+    assert any("verification.required_success" in w for w in
+               rig_from_table(edit("verification.required_success", 0.2)).warnings)
 
 
 def test_the_valid_table_loads():

@@ -134,10 +134,16 @@ def test_cli_json_fields(capsys):
     code = main(["verify", str(SCENARIOS / "arm-2dof.toml"), "--rollouts", "40", "--seed", "3", "--horizon", "2",
                  "--roa-samples", "60", "--json"])
     data = json.loads(capsys.readouterr().out)
-    assert code in (0, 1)
     for key in ("rollouts", "seed", "success_rate", "success_interval", "budgets", "region_of_attraction",
-                "hazards", "timing", "state", "inputs", "units"):
+                "hazards", "timing", "state", "inputs", "units", "verdict", "reasons", "verdict_rule",
+                "required_success", "success_lower_bound", "limited_by", "estimator", "estimator_kind"):
         assert key in data
+    # 40 rollouts cannot show the default 95 %: even all held, the Wilson lower end is 40 / (40 + z^2) = 0.912
+    # (Wilson, 1927, at p = 1), so the verdict fails on the success-rate bound and says how many runs it takes.
+    assert code == 1 and data["verdict"] == "fail" and data["required_success"] == 0.95
+    assert "success-rate bound" in data["limited_by"] and "run at least 73" in data["reasons"][0]
+    assert data["success_lower_bound"] == data["success_interval"][0] <= 40 / (40 + 1.959963984540054**2) + 1e-12
+    assert data["estimator_kind"] == "kalman"
     assert data["rollouts"] == 40 and data["seed"] == 3
     assert set(data["timing"]) >= {"simulate_s", "rollouts", "horizon_s"} and data["timing"]["horizon_s"] == 2.0
     assert all(set(b) >= {"name", "value", "limit", "unit", "ok"} for b in data["budgets"])
@@ -147,3 +153,26 @@ def test_cli_json_fields(capsys):
     assert low <= data["success_rate"] <= high
     assert any("ISO 13850" in h["standards"] for h in data["hazards"])
     assert load_rig(SCENARIOS / "arm-2dof.toml").n_states == len(roa["level_set_extents"])
+
+
+def test_cli_verifies_a_delayed_loop_with_either_estimator_and_the_rig_files_required_success(tmp_path, capsys):
+    # A one-sample computation delay designed in, [verification].required_success from the rig file, and the
+    # finite-difference estimator on request; --required-success overrides the file.
+    text = (SCENARIOS / "arm-2dof.toml").read_text()
+    text = text.replace("sample_rate = 500.0", "sample_rate = 500.0\ndelay_samples = 1")
+    text += "\n[verification]\nrequired_success = 0.9\n"
+    path = tmp_path / "arm-delay.toml"
+    path.write_text(text)
+    common = ["--rollouts", "30", "--horizon", "2", "--roa-samples", "30", "--json"]
+    assert main(["verify", str(path), "--estimator", "finite-difference", *common]) in (0, 1)
+    data = json.loads(capsys.readouterr().out)
+    assert data["estimator_kind"] == "finite-difference" and "delay 1 samples" in data["controller"]
+    assert data["required_success"] == 0.9
+    assert data["success_rate"] == 1.0  # small offsets on a delay-aware design: every run holds
+    # 30 of 30 shows at most 30 / (30 + z^2) = 0.886 < 0.9: a fail on the bound; at 0.85 the same runs pass.
+    assert data["verdict"] == "fail"
+    assert main(["verify", str(path), "--required-success", "0.85", *common]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["verdict"] == "pass" and data["required_success"] == 0.85 and data["estimator_kind"] == "kalman"
+    assert main(["verify", str(path), "--required-success", "1", *common]) == 2
+    assert "--required-success must be a fraction in (0, 1)" in capsys.readouterr().err

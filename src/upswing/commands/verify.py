@@ -1,5 +1,6 @@
-"""``upswing verify RIG [--rollouts N] [--seed S] [--scheduler ADDRESS] [--json]``: verify the balance controller
-on the nonlinear model: Monte Carlo success rate, budgets, region of attraction, hazard notes."""
+"""``upswing verify RIG [--rollouts N] [--seed S] [--scheduler ADDRESS] [--estimator KIND] [--required-success R]
+[--json]``: verify the balance controller on the nonlinear model: Monte Carlo success rate, budgets, region of
+attraction, hazard notes, and a verdict (rule in :mod:`upswing.verification.verdict`)."""
 
 from __future__ import annotations
 
@@ -10,8 +11,9 @@ from typing import Any
 from upswing.commands.common import Outcome, add_rig_argument, load, rig_header, safety_block
 from upswing.errors import RequestError
 from upswing.report.verification_text import verification_text
+from upswing.synthesis.estimation import KINDS
 from upswing.verification.controllers import MEASUREMENTS
-from upswing.verification.verdict import Verification, verify_balance
+from upswing.verification.verdict import VERDICT_RULE, Verification, verify_balance
 
 NAME = "verify"
 HELP = "simulate the balance controller on the nonlinear rig: success rate, budgets, region of attraction, hazards"
@@ -26,8 +28,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help="run the rollouts on a Dask cluster (tcp://host:8786); default: local processes")
     parser.add_argument("--measurement", choices=MEASUREMENTS, default="encoders",
-                        help="encoders: quantized, noisy readings and a Kalman filter (default); state: ideal "
+                        help="encoders: quantized, noisy readings and a velocity estimator (default); state: ideal "
                              "full-state feedback, a baseline")
+    parser.add_argument("--estimator", choices=KINDS, default="kalman",
+                        help="velocity estimator on encoders, as upswing balance exports it: kalman (steady-state "
+                             "Kalman filter, default) or finite-difference (filtered backward difference)")
+    parser.add_argument("--required-success", type=float, metavar="R",
+                        help="success rate to show for a pass, a fraction in (0, 1): the lower end of the 95 %% "
+                             "Wilson interval must reach it (default: [verification].required_success, 0.95)")
     parser.add_argument("--horizon", type=float, default=5.0, metavar="SECONDS",
                         help="simulated time per Monte Carlo rollout (default 5 s)")
     parser.add_argument("--roa-samples", type=int, default=1500, metavar="N",
@@ -40,9 +48,14 @@ def verification_json(v: Verification) -> dict[str, Any]:
     return {
         "verdict": v.verdict,
         "reasons": list(v.reasons),
+        "verdict_rule": VERDICT_RULE,
+        "required_success": v.decision.required_success,
+        "success_lower_bound": v.decision.success_lower_bound,
+        "limited_by": list(v.decision.limited_by),
         "controller": v.controller,
         "measurement": v.measurement,
         "estimator": v.estimator,
+        "estimator_kind": v.estimator_kind,
         "rollouts": mc.rollouts,
         "seed": mc.seed,
         "success_rate": mc.success_rate,
@@ -87,13 +100,15 @@ def run(args: argparse.Namespace) -> Outcome:
         raise RequestError(f"--roa-samples must be at least 10; got {args.roa_samples}")
     if not args.horizon > 1.0:
         raise RequestError(f"--horizon must be more than the 1 s hold window; got {args.horizon:g} s")
+    if args.required_success is not None and not 0.0 < args.required_success < 1.0:
+        raise RequestError(f"--required-success must be a fraction in (0, 1), e.g. 0.95; got {args.required_success:g}")
     progress = (not args.json) and sys.stderr.isatty()
     v = verify_balance(rig, rollouts=args.rollouts, seed=args.seed, measurement=args.measurement,
-                       horizon=args.horizon, scheduler=args.scheduler, progress=progress,
-                       roa_samples=args.roa_samples)
+                       estimator=args.estimator, required_success=args.required_success, horizon=args.horizon,
+                       scheduler=args.scheduler, progress=progress, roa_samples=args.roa_samples)
     data = {**rig_header(rig), **verification_json(v),
             "units_extra": {"budgets": "each line's unit", "rho": "cost-to-go (dimensionless mix of state units)",
-                            "timing": "s"},
+                            "timing": "s", "success_rate": "fraction", "required_success": "fraction"},
             "warnings": list(rig.warnings), **safety_block()}
     return Outcome(text=verification_text(rig, v), data=data, warnings=rig.warnings,
                    exit_code=0 if v.verdict == "pass" else 1)

@@ -63,3 +63,9 @@ def keep_out_radius(rig: Rig, margin: float = 0.5) -> float:
     """Recommended keep-out distance from the swept region's edge [m]: reach plus a margin (default 0.5 m,
     common practice for arm-reach clearance; use ISO 13857's tables for the real guard layout)."""
     return derived_quantities(rig).keep_out_half_width + margin
+
+
+def keep_out_origin(rig: Rig) -> str:
+    """Where :func:`keep_out_radius` is measured from, in words: the shoulder axis on a fixed base; on a cart rig
+    the rail's centre, because the shoulder rides along the rail and the links reach past the rail's ends."""
+    return "the rail's centre (the links reach past the rail's ends)" if rig.cart is not None else "the shoulder axis"

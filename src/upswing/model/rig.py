@@ -120,6 +120,14 @@ class Uncertainty:
 
 
 @dataclass(frozen=True)
+class VerificationSettings:
+    """How ``upswing verify`` decides: ``required_success`` is the success rate (a fraction) that the lower end of
+    the 95 % Wilson interval of the Monte Carlo success rate must reach for a pass."""
+
+    required_success: float = schema.VERIFICATION.key("required_success").default
+
+
+@dataclass(frozen=True)
 class Rig:
     """A validated double-pendulum rig. Immutable; build new rigs with :meth:`with_parameters`.
 
@@ -139,6 +147,7 @@ class Rig:
     balance: Balance
     sensors: Sensors
     uncertainty: Uncertainty
+    verification: VerificationSettings = field(default_factory=VerificationSettings)
     description: str = ""
     source: str = "<table>"
     content_hash: str = ""
@@ -374,11 +383,13 @@ class _Loader:
         sensors = Sensors(**self.read(self.sub_table(table, "sensors", "", False) or {}, schema.SENSORS,
                                       "sensors"))
         uncertainty = self.uncertainty(table, base)
+        verification = VerificationSettings(**self.read(self.sub_table(table, "verification", "", False) or {},
+                                                        schema.VERIFICATION, "verification"))
         return Rig(
             name=top["name"], description=top["description"], base=base, actuated=actuated,
             gravity=top["gravity"], link1=link1, link2=link2, cart=cart, actuators=actuators,
-            balance=balance, sensors=sensors, uncertainty=uncertainty, source=self.source,
-            warnings=tuple(self.warnings),
+            balance=balance, sensors=sensors, uncertainty=uncertainty, verification=verification,
+            source=self.source, warnings=tuple(self.warnings),
         )
 
     def link(self, table: dict[str, Any], tag: str) -> Link:

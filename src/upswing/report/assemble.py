@@ -10,7 +10,7 @@ import math
 from datetime import datetime
 
 from upswing import __version__
-from upswing.model.derived import derived_quantities, keep_out_radius
+from upswing.model.derived import derived_quantities, keep_out_origin, keep_out_radius
 from upswing.model.modes import WEAK_CONTROL, EquilibriumReport, analyse_all
 from upswing.model.rig import Rig
 from upswing.report import figures_modes, figures_rig, figures_time
@@ -137,8 +137,8 @@ def model_hazards(rig: Rig, reports: dict[str, EquilibriumReport]) -> tuple[Haza
         "swept zone",
         f"The links can reach {d.reach:.2f} m from the shoulder axis"
         + (f" and the shoulder rides {rig.cart.travel:.2f} m either side of the rail centre" if rig.cart else "")
-        + f". Keep people at least {keep_out_radius(rig):.2f} m from the "
-        + ("rail centre" if rig.cart else "shoulder axis") + " while the drive is enabled, or guard the zone.",
+        + f". Keep people at least {keep_out_radius(rig):.2f} m from {keep_out_origin(rig)} while the drive is "
+          "enabled, or guard the zone.",
         ("ISO 12100", "ISO 14120", "ISO 13857"))]
     upright = reports["upright"]
     if upright.growth_rates:

@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from upswing.model.derived import DerivedQuantities, keep_out_radius
+from upswing.model.derived import DerivedQuantities, keep_out_origin, keep_out_radius
 from upswing.model.modes import EquilibriumReport
 from upswing.model.rig import Rig
 from upswing.safety import CAUTIONS
@@ -52,9 +52,8 @@ def check_text(rig: Rig, derived: DerivedQuantities) -> str:
     out = [f"{rig.name}  ({rig.source})", "", table(rows, ["quantity", "value", "unit"])]
     if rig.warnings:
         out += ["", "Warnings:", *[f"  - {w}" for w in rig.warnings]]
-    origin = "the rail's centre (links reach past the rail ends)" if rig.cart else "the shoulder axis"
-    out += ["", f"Keep-out: stay at least {keep_out_radius(rig):.2f} m from {origin} while the drive is enabled "
-                "(reach plus 0.5 m; lay out guards per ISO 13857).",
+    out += ["", f"Keep-out: stay at least {keep_out_radius(rig):.2f} m from {keep_out_origin(rig)} while the drive "
+                "is enabled (reach plus 0.5 m; lay out guards per ISO 13857).",
             "", cautions_text()]
     return "\n".join(out)
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from upswing.model.rig import Rig
 from upswing.report.text import cautions_text, table
-from upswing.verification.verdict import Verification
+from upswing.verification.verdict import VERDICT_RULE, Verification
 
 
 def _number(x: float | None) -> str:
@@ -19,6 +19,9 @@ def verification_text(rig: Rig, v: Verification) -> str:
            f"controller: {v.controller}; measurement: {v.measurement} ({v.estimator})",
            f"VERDICT: {v.verdict.upper()}"]
     out += [f"  - {r}" for r in v.reasons]
+    if v.verdict == "pass":
+        out += [f"  - {what}" for what in v.decision.limited_by]
+    out.append(f"  (rule: {VERDICT_RULE}; required success rate {v.decision.required_success:.1%})")
     out += ["", f"Monte Carlo: {mc.successes} of {mc.rollouts} rollouts held ({mc.success_rate:.1%}; 95 % Wilson "
                 f"interval {low:.1%} .. {high:.1%}), seed {mc.seed}, {mc.distribution} parameter spreads, "
                 f"{mc.horizon_s:g} s each",

@@ -6,6 +6,11 @@ rollouts up to the moment they stopped. Limits come from the rig file: ``peak`` 
 ``max_speed`` per actuated joint, the cart's ``travel``. Time in saturation is judged against a policy of this
 module, :data:`SATURATION_SHARE` of the horizon. Base loads, tip speed and kinetic energy have no rating in the rig
 file: they are reported with ``limit = None`` and ``ok = None`` and feed the hazard notes.
+
+Residual motion (``<state>.residual_motion``): the largest |state error| over the final hold window of each held
+run. A balance loop with Coulomb friction hunts in a small limit cycle instead of coming to rest, and encoder noise
+through the estimator makes the rates jitter; both are findings, not falls (a run whose residual motion leaves the
+settling box is counted as "not settled" by the success rate), so these lines too have no limit.
 """
 
 from __future__ import annotations
@@ -42,8 +47,9 @@ def _line(name: str, values: np.ndarray, limit: float | None, unit: str, meaning
                   median=float(np.median(values)) if values.size else 0.0, meaning=meaning)
 
 
-def compute_budgets(rig: Rig, results: Rollouts, horizon: float) -> tuple[Budget, ...]:
-    """Budget lines for a set of rollouts (see the module docstring)."""
+def compute_budgets(rig: Rig, results: Rollouts, horizon: float, hold_s: float = 1.0) -> tuple[Budget, ...]:
+    """Budget lines for a set of rollouts (see the module docstring); ``hold_s`` is the length of the final window
+    the residual motion is taken over [s] (``Settling.hold``)."""
     if results.held.any():
         results = results.subset(results.held)
     out = []
@@ -71,4 +77,7 @@ def compute_budgets(rig: Rig, results: Rollouts, horizon: float) -> tuple[Budget
     out.append(_line("base.peak_moment", mon[:, 2], None, "N m", "moment the shoulder passes to the base"))
     out.append(_line("tip.peak_speed", mon[:, 3], None, "m/s", "speed of link 2's tip"))
     out.append(_line("links.peak_kinetic_energy", mon[:, 4], None, "J", "kinetic energy of the moving parts"))
+    for j, (state, unit) in enumerate(zip(rig.state_names, rig.state_units, strict=True)):
+        out.append(_line(f"{state}.residual_motion", results.hold_error[:, j], None, unit,
+                         f"largest |{state} error| in the final {hold_s:g} s (friction hunting, noise jitter)"))
     return tuple(out)

@@ -340,18 +340,22 @@ if HAVE_NUMBA:
             _update(S, A1, A2, A3, A4, h)
 
 
-def advance_numba(S: np.ndarray, T: np.ndarray, C: np.ndarray, h: float, nsub: int, M: np.ndarray) -> None:
-    """As :func:`advance_numpy`, compiled (requires numba)."""
-    A1, A2, A3, A4 = (np.empty_like(T) for _ in range(4))
+def advance_numba(S: np.ndarray, T: np.ndarray, C: np.ndarray, h: float, nsub: int, M: np.ndarray,
+                  work: np.ndarray | None = None) -> None:
+    """As :func:`advance_numpy`, compiled (requires numba). ``work``, shape (4, n_q, N), holds the stage
+    accelerations; a caller that steps the same batch many times passes it to save four allocations a call."""
+    if work is None:
+        work = np.empty((4, *T.shape))
     kernel = _rk4_cart if S.shape[0] == 6 else _rk4_fixed
-    kernel(S, T, C, float(h), int(nsub), M, A1, A2, A3, A4)
+    kernel(S, T, C, float(h), int(nsub), M, work[0], work[1], work[2], work[3])
 
 
 def advance(S: np.ndarray, T: np.ndarray, C: np.ndarray, h: float, nsub: int, M: np.ndarray,
-            backend: str = "auto") -> None:
-    """RK4 step of the batch with held inputs; ``backend`` is ``"numba"``, ``"numpy"`` or ``"auto"``."""
+            backend: str = "auto", work: np.ndarray | None = None) -> None:
+    """RK4 step of the batch with held inputs; ``backend`` is ``"numba"``, ``"numpy"`` or ``"auto"``; ``work``
+    as in :func:`advance_numba` (unused by numpy)."""
     if backend == "numba" or (backend == "auto" and HAVE_NUMBA):
-        advance_numba(S, T, C, h, nsub, M)
+        advance_numba(S, T, C, h, nsub, M, work)
     else:
         advance_numpy(S, T, C, h, nsub, M)
 

@@ -72,11 +72,11 @@ def limit_numpy(U: np.ndarray, S: np.ndarray, peak: np.ndarray, stall: np.ndarra
 
 def check_numpy(S: np.ndarray, M: np.ndarray, x_eq: np.ndarray, is_angle: np.ndarray, cart: bool, travel: float,
                 angle_bound: float, speed_bound: np.ndarray, box: np.ndarray, t: float, hold_from: float,
-                acc: np.ndarray, status: np.ndarray) -> None:
-    """Peaks and bounds after a sample. ``acc`` rows: [0:n_q] max |speed|, [n_q] max |x|, [n_q+1 : n_q+6] max
-    |monitor|, [n_q+6] max |force|, [n_q+7] last time outside ``box``, [n_q+8 : n_q+8+n] max |error| from
-    ``hold_from`` on. ``box`` (n,) bounds |error| per state (inf = no bound). ``status`` gets the failure code
-    (see :mod:`upswing.verification.simulate`), 0 when none."""
+                acc: np.ndarray, status: np.ndarray) -> int:
+    """Peaks and bounds after a sample; returns the number of rollouts that failed at it. ``acc`` rows: [0:n_q]
+    max |speed|, [n_q] max |x|, [n_q+1 : n_q+6] max |monitor|, [n_q+6] max |force|, [n_q+7] last time outside
+    ``box``, [n_q+8 : n_q+8+n] max |error| from ``hold_from`` on. ``box`` (n,) bounds |error| per state (inf = no
+    bound). ``status`` gets the failure code (see :mod:`upswing.verification.simulate`), 0 when none."""
     n = S.shape[0]
     n_q = n // 2
     E = S - x_eq[:, None]
@@ -97,6 +97,7 @@ def check_numpy(S: np.ndarray, M: np.ndarray, x_eq: np.ndarray, is_angle: np.nda
     if cart:
         status[np.abs(S[0]) >= travel] = 3
     status[~np.all(np.isfinite(S), axis=0)] = 5
+    return int(np.count_nonzero(status))
 
 
 # ----------------------------------------------------------------------------------------------------------------
@@ -114,7 +115,7 @@ if HAVE_NUMBA:
                 if use_noise:
                     r += noise[j, i]
                 e = r - x_eq[j]
-                if is_angle[j]:
+                if is_angle[j] and (e > math.pi or e <= -math.pi):  # wrap only what lies outside (-pi, pi]
                     e = e + TWO_PI * np.floor((math.pi - e) / TWO_PI)
                 Y[i, j] = e
 
@@ -139,53 +140,72 @@ if HAVE_NUMBA:
                 if abs(c) >= limit:
                     acc[4 * j + 3, i] += 1.0
 
+    # Failure flags, combined per rollout and turned into a status code at the end.
+    _FELL, _RUNAWAY, _END_STOP, _NON_FINITE, _OUTSIDE = 1, 2, 4, 8, 16
+
     @numba.njit(error_model="numpy", cache=True)
     def _check(S, M, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t, hold_from, acc,
                status):  # pragma: no cover - compiled
-        n = S.shape[0]
+        # Row by row, rollouts innermost: each loop runs along contiguous memory and LLVM vectorizes it (a loop
+        # over rollouts with the rows inside strides through a dozen arrays per rollout: measured ~20 % slower).
+        n, N = S.shape
         n_q = n // 2
-        for i in range(S.shape[1]):
-            fell = False
-            inside = True
-            finite = True
-            for j in range(n):
-                e = S[j, i] - x_eq[j]
-                if is_angle[j]:
+        hold = t >= hold_from
+        flags = np.zeros(N, dtype=np.int8)
+        for j in range(n):
+            xe, bound, angle = x_eq[j], box[j], is_angle[j]
+            for i in range(N):
+                s = S[j, i]
+                e = s - xe
+                if angle and (e > math.pi or e <= -math.pi):  # wrap only what lies outside (-pi, pi]
                     e = e + TWO_PI * np.floor((math.pi - e) / TWO_PI)
-                    if abs(e) > angle_bound:
-                        fell = True
-                if not np.isfinite(S[j, i]):
-                    finite = False
-                if abs(e) > box[j]:
-                    inside = False
-                if t >= hold_from:
-                    acc[n_q + 8 + j, i] = max(acc[n_q + 8 + j, i], abs(e))
-            runaway = False
-            for j in range(n_q):
+                a = abs(e)
+                f = flags[i]
+                if angle and a > angle_bound:
+                    f |= _FELL
+                if not np.isfinite(s):
+                    f |= _NON_FINITE
+                if a > bound:
+                    f |= _OUTSIDE
+                flags[i] = f
+                if hold:
+                    acc[n_q + 8 + j, i] = max(acc[n_q + 8 + j, i], a)
+        for j in range(n_q):
+            limit = speed_bound[j]
+            for i in range(N):
                 v = abs(S[n_q + j, i])
                 acc[j, i] = max(acc[j, i], v)
-                if v > speed_bound[j]:
-                    runaway = True
-            end_stop = False
-            if cart:
+                if v > limit:
+                    flags[i] |= _RUNAWAY
+        if cart:
+            for i in range(N):
                 x = abs(S[0, i])
                 acc[n_q, i] = max(acc[n_q, i], x)
-                end_stop = x >= travel
-            for j in range(5):
+                if x >= travel:
+                    flags[i] |= _END_STOP
+        for j in range(5):
+            for i in range(N):
                 acc[n_q + 1 + j, i] = max(acc[n_q + 1 + j, i], abs(M[j, i]))
-            acc[n_q + 6, i] = max(acc[n_q + 6, i], math.hypot(M[0, i], M[1, i]))
-            if not inside:
+        for i in range(N):  # |force|: forces of a bench rig are far from overflow, so no need for hypot's care
+            acc[n_q + 6, i] = max(acc[n_q + 6, i], math.sqrt(M[0, i] * M[0, i] + M[1, i] * M[1, i]))
+        failed = 0
+        for i in range(N):
+            f = flags[i]
+            if f & _OUTSIDE:
                 acc[n_q + 7, i] = t
             code = 0  # precedence as in check_numpy: non-finite > end stop > runaway > fell
-            if fell:
+            if f & _FELL:
                 code = 2
-            if runaway:
+            if f & _RUNAWAY:
                 code = 4
-            if end_stop:
+            if f & _END_STOP:
                 code = 3
-            if not finite:
+            if f & _NON_FINITE:
                 code = 5
             status[i] = code
+            if code != 0:
+                failed += 1
+        return failed
 
 
 def read(S, x_eq, is_angle, n_meas, quantum, noise, Y, compiled: bool) -> None:
@@ -206,9 +226,9 @@ def limit(U, S, peak, stall, no_load, joint, n_q, T, acc, compiled: bool) -> Non
 
 
 def check(S, M, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t, hold_from, acc, status,
-          compiled: bool) -> None:
-    """Peaks, bounds and settling; see :func:`check_numpy`."""
+          compiled: bool) -> int:
+    """Peaks, bounds and settling; returns the number of failed rollouts; see :func:`check_numpy`."""
     if compiled:
-        _check(S, M, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t, hold_from, acc, status)
-    else:
-        check_numpy(S, M, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t, hold_from, acc, status)
+        return _check(S, M, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t, hold_from, acc, status)
+    return check_numpy(S, M, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t, hold_from, acc,
+                       status)

@@ -47,3 +47,23 @@ def point_biserial(flag: np.ndarray, values: np.ndarray) -> float:
     if f.size < 2 or np.ptp(f) == 0 or np.ptp(v) == 0:
         return 0.0
     return float(np.corrcoef(f, v)[0, 1])
+
+
+def trials_to_show(required: float, confidence: float = 0.95) -> int:
+    """Fewest trials n for which n successes out of n put the Wilson interval's lower end at ``required`` or above.
+
+    With s = n the lower end is n / (n + z^2) (the formula of :func:`wilson_interval` at p = 1), so
+    n >= z^2 r / (1 - r); e.g. 73 trials for r = 0.95 and 381 for r = 0.99 at 95 % confidence.
+
+    Raises
+    ------
+    RequestError
+        For ``required`` outside (0, 1).
+    """
+    if not 0.0 < required < 1.0:
+        raise RequestError(f"a required success rate must be in (0, 1); got {required}")
+    z = float(norm.ppf(0.5 + confidence / 2.0))
+    n = max(1, math.ceil(z * z * required / (1.0 - required)))
+    while wilson_interval(n, n, confidence)[0] < required:  # guard the ceiling against round-off
+        n += 1
+    return n

@@ -77,7 +77,8 @@ def design_text(run: DesignRun, folder: RunFolder, demo: bool) -> str:
                    f"({100 * b.value / b.limit:.0f} % used)")
     if v.smallest is not None:
         m = v.smallest
-        out.append(f"smallest margin: {m.name} = {m.value:.4g} {m.unit}, required {m.required:.4g} {m.unit} "
+        unit = "" if m.unit in ("", "-") else f" {m.unit}"
+        out.append(f"smallest margin: {m.name} = {m.value:.4g}{unit}, required {m.required:.4g}{unit} "
                    f"({m.ratio:.3g} times the minimum)")
     rows = [[s.name, s.status, f"{s.seconds:.2f}"] for s in run.stages]
     rows.append(["report and files", "done", f"{folder.report_s + folder.files_s:.2f}"])

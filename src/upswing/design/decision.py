@@ -4,7 +4,8 @@ Rule (:data:`DESIGN_RULE`):
 
 * **do not power** when any stage failed, any budget with a limit is exceeded, or any margin is below its required
   value; the reasons name each of them;
-* **incomplete** (no decision) when nothing failed but a stage is missing from this build or could not run;
+* **incomplete** (no decision) when nothing failed but a stage is missing from this build or could not run, or a
+  result could not be checked (a swing-up planned but not verified on the nonlinear model);
 * **power** otherwise: every stage ran and every budget and margin is met (and then only at reduced limits first,
   with the cautions).
 
@@ -35,7 +36,8 @@ from upswing.verification.budgets import Budget
 GAIN_FACTOR_MIN = 2.0  # 6 dB each way (common practice for a loop that must tolerate actuator and model error)
 PHASE_MARGIN_MIN_DEG = 30.0  # common practice: 30 to 60 deg; the lower end, the estimator's lag included
 DESIGN_RULE = ("do not power when a stage failed, a budget exceeds its limit or a margin is below its requirement; "
-               "no decision when a stage is missing or could not run; power (at reduced limits first) otherwise")
+               "no decision when a stage is missing or could not run or a result is unchecked; power (at reduced "
+               "limits first) otherwise")
 
 
 @dataclass(frozen=True)
@@ -108,7 +110,7 @@ def ranked_budgets(budgets: Sequence[Budget]) -> tuple[Budget, ...]:
 
 
 def decide(stages: Sequence[StageRecord], budgets: Sequence[Budget], margins: Sequence[Margin], *,
-           details: Mapping[str, str] | None = None) -> Verdict:
+           details: Mapping[str, str] | None = None, unchecked: Sequence[tuple[str, str]] = ()) -> Verdict:
     """Apply :data:`DESIGN_RULE`.
 
     Parameters
@@ -119,9 +121,12 @@ def decide(stages: Sequence[StageRecord], budgets: Sequence[Budget], margins: Se
     margins : sequence of Margin
     details : mapping of str to str, optional
         A sentence to add to the reason of a failing budget or margin, by its name.
+    unchecked : sequence of (str, str)
+        (what, why) for results a stage produced but could not check (e.g. a swing-up planned but not verified):
+        like a missing stage, they leave the verdict without a decision unless something failed.
     """
     details = details or {}
-    failed, pending, reasons = [], [], []
+    failed, pending, unchecked_names, reasons = [], [], [], []
     for s in stages:
         if s.status == "failed":
             failed.append(f"the {s.name} stage")
@@ -129,6 +134,9 @@ def decide(stages: Sequence[StageRecord], budgets: Sequence[Budget], margins: Se
         elif s.status in ("missing", "skipped"):
             pending.append(f"the {s.name} stage")
             reasons.append(f"{s.name} stage {'is missing' if s.status == 'missing' else 'was skipped'}: {s.message}")
+    for what, why in unchecked:
+        unchecked_names.append(what)
+        reasons.append(f"{what} is unchecked: {why}")
     for b in budgets:
         if b.ok is False:
             failed.append(b.name)
@@ -143,15 +151,19 @@ def decide(stages: Sequence[StageRecord], budgets: Sequence[Budget], margins: Se
             reasons.append(text + (f"; {details[m.name]}" if m.name in details else ""))
     tight, small = tightest_budget(ranked_budgets(budgets)), smallest_margin(margins)
     # Failures first, then what did not run.
-    reasons.sort(key=lambda r: " stage is missing" in r or " stage was skipped" in r)
+    reasons.sort(key=lambda r: any(w in r for w in (" stage is missing", " stage was skipped", " is unchecked: ")))
     if failed:
         headline = (f"Do not power this rig: {len(failed)} check{'s' if len(failed) > 1 else ''} "
                     f"fail{'' if len(failed) > 1 else 's'} ({'; '.join(failed)}).")
         if pending:
             headline += f" Not run: {', '.join(pending)}."
+        if unchecked_names:
+            headline += f" Not checked: {', '.join(unchecked_names)}."
         return Verdict("do-not-power", headline, tight, small, tuple(reasons))
-    if pending:
-        return Verdict("incomplete", f"No decision: {', '.join(pending)} did not run, so this run cannot clear the "
-                       "rig. Everything that did run passes its checks.", tight, small, tuple(reasons))
+    if pending or unchecked_names:
+        parts = ([f"{', '.join(pending)} did not run"] if pending else []) + \
+                ([f"{', '.join(unchecked_names)} could not be checked"] if unchecked_names else [])
+        return Verdict("incomplete", f"No decision: {' and '.join(parts)}, so this run cannot clear the rig. "
+                       "Everything that did run passes its checks.", tight, small, tuple(reasons))
     return Verdict("power", "Every stage ran and every budget and margin is met: power up at reduced limits first, "
                    "as cautioned below.", tight, small, ())

@@ -12,7 +12,8 @@ Stages, in order (:data:`STAGES`), each timed:
     the LQR balance design at the loop rate, both velocity estimators and the margins of every variant
     (:func:`upswing.synthesis.study.study_balance`).
 ``swing-up``
-    the slot of :mod:`upswing.design.swingup_stage`: missing until this build has the swing-up synthesis.
+    :mod:`upswing.design.swingup_stage`: the planned swing-up and what it asks of the rig (unverified on the
+    nonlinear model until this build has a tracking controller; missing without the swing-up synthesis).
 ``verification``
     the balance loop on the nonlinear model (:func:`upswing.verification.verdict.verify_balance`: Monte Carlo,
     region of attraction, drop-outs, budgets), then the offset and tap responses
@@ -43,7 +44,7 @@ from upswing.design.decision import (
     success_margin,
 )
 from upswing.design.responses import BalanceResponses, balance_responses
-from upswing.design.swingup_stage import StageUnavailable, SwingUpOutcome, run_swingup_stage
+from upswing.design.swingup_stage import StageUnavailable, SwingUpOutcome, run_swingup_stage, swingup_hazards
 from upswing.errors import RequestError, RigFileError, UpswingError
 from upswing.model.modes import EquilibriumReport, analyse_all
 from upswing.model.rig import Rig, load_rig
@@ -59,7 +60,6 @@ from upswing.verification.verdict import Verification, verify_balance
 
 STAGES = ("validate", "modes", "balance", "swing-up", "verification", "budgets and hazards")
 RUNNING_LOOP = "discrete_kalman"  # the margins of the loop the verification runs: discrete LQR + Kalman filter
-REQUIRED_SUCCESS = 0.95  # fraction the Wilson lower bound must reach (verification's default)
 
 
 @dataclass(frozen=True)
@@ -76,8 +76,9 @@ class DesignOptions:
         Starts in the first round of the region-of-attraction estimate (>= 10).
     horizon : float
         Simulated seconds per Monte Carlo rollout (> 1 s, the settling window).
-    required_success : float
-        Success rate the lower end of the 95 % Wilson interval must reach [fraction in (0, 1)].
+    required_success : float or None
+        Success rate the lower end of the 95 % Wilson interval must reach [fraction in (0, 1)]; None takes the rig
+        file's ``[verification].required_success``.
     workers : int or None
         Local processes for the batch simulations (None: the machine's cores).
     progress : bool
@@ -88,7 +89,7 @@ class DesignOptions:
     seed: int = 0
     roa_samples: int = 1500
     horizon: float = 5.0
-    required_success: float = REQUIRED_SUCCESS
+    required_success: float | None = None
     workers: int | None = None
     progress: bool = False
 
@@ -101,7 +102,7 @@ class DesignOptions:
             raise RequestError(f"roa_samples must be a whole number >= 10; got {self.roa_samples!r}")
         if not self.horizon > 1.0:
             raise RequestError(f"horizon must be more than the 1 s settling window; got {self.horizon!r} s")
-        if not 0.0 < self.required_success < 1.0:
+        if self.required_success is not None and not 0.0 < self.required_success < 1.0:
             raise RequestError(f"required_success must be a fraction in (0, 1); got {self.required_success!r}")
 
 
@@ -129,6 +130,8 @@ class DesignRun:
     margins : tuple of Margin
         Every judged margin.
     hazards : tuple of HazardNote
+    unchecked : tuple of (str, str)
+        (what, why) for results produced but not checked (a swing-up planned but not verified).
     verdict : Verdict
     cautions : tuple of str
     total_s : float
@@ -148,9 +151,16 @@ class DesignRun:
     budgets: tuple[Budget, ...]
     margins: tuple[Margin, ...]
     hazards: tuple[HazardNote, ...]
+    unchecked: tuple[tuple[str, str], ...]
     verdict: Verdict
     cautions: tuple[str, ...]
     total_s: float
+
+    @property
+    def required_success(self) -> float:
+        """The success rate the run asked the verification to show [fraction]: the option, or the rig file's."""
+        given = self.options.required_success
+        return self.rig.verification.required_success if given is None else given
 
     def stage(self, name: str) -> StageRecord:
         """The record of stage ``name``."""
@@ -222,9 +232,9 @@ def _read_rig(path: Path) -> tuple[Rig, bytes]:
 
 def _verify(rig: Rig, study: BalanceStudy, options: DesignOptions) -> tuple[Verification, BalanceResponses]:
     verification = verify_balance(rig, rollouts=options.rollouts, seed=options.seed, horizon=options.horizon,
-                                  workers=options.workers, progress=options.progress,
-                                  roa_samples=options.roa_samples)
-    controller = balance_controller(rig, measurement="encoders", design=study.design, observer=study.kalman)
+                                  required_success=options.required_success, workers=options.workers,
+                                  progress=options.progress, roa_samples=options.roa_samples)
+    controller = balance_controller(rig, measurement="encoders", design=study.design, estimator=study.kalman)
     responses = balance_responses(rig, study.design, controller, verification.region, seed=options.seed,
                                   substeps=verification.integration.substeps)
     return verification, responses
@@ -268,8 +278,7 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
 
     modes = stages.run("modes", lambda: analyse_all(rig))
     study = stages.run("balance", lambda: study_balance(rig))
-    swingup = stages.run("swing-up", lambda: run_swingup_stage(rig, study, seed=options.seed,
-                                                               rollouts=options.rollouts))
+    swingup = stages.run("swing-up", lambda: run_swingup_stage(rig, seed=options.seed))
     verified = stages.run("verification", lambda: _verify(rig, study, options), needs=("balance",))
     verification, responses = verified if verified is not None else (None, None)
 
@@ -281,28 +290,35 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
             margins += control_margins(rig, modes)
         if study is not None:
             margins += loop_margins(study.margins[RUNNING_LOOP])
+        if swingup is not None:
+            budgets += [_prefixed("swingup", b) for b in swingup.budgets]
         if verification is not None:
             mc = verification.monte_carlo
             budgets += [_prefixed("balance", b) for b in verification.budgets]
-            hold = success_margin("balance hold", mc.success_interval[0], options.required_success)
+            d = verification.decision
+            hold = success_margin("balance hold", d.success_lower_bound, d.required_success)
             margins.append(hold)
             fails = ", ".join(f"{k}: {v}" for k, v in mc.outcomes.items() if k != "held")
             details[hold.name] = (f"{mc.successes} of {mc.rollouts} Monte Carlo rollouts held "
                                   f"({mc.success_rate:.1%})" + (f"; did not hold: {fails}" if fails else ""))
         hazards = _merge_hazards(verification.hazards if verification is not None else (),
+                                 swingup_hazards(rig, swingup.budgets) if swingup is not None else (),
                                  model_hazards(rig, modes) if modes is not None else ())
         return tuple(budgets), tuple(margins), details, hazards
 
     weighed = stages.run("budgets and hazards", weigh)
     budgets, margins, details, hazards = weighed if weighed is not None else ((), (), {}, ())
     # The verdict is made from the finished records, so a failure in "budgets and hazards" is weighed too.
-    verdict = decide(stages.records, budgets, margins, details=details)
+    unchecked = (("the swing-up", swingup.unverified),) if swingup is not None and swingup.unverified else ()
+    verdict = decide(stages.records, budgets, margins, details=details, unchecked=unchecked)
     return DesignRun(rig=rig, rig_path=path, rig_bytes=raw, options=options, stages=tuple(stages.records),
                      modes=modes, balance=study, swingup=swingup, verification=verification, responses=responses,
-                     budgets=budgets, margins=margins, hazards=hazards, verdict=verdict, cautions=CAUTIONS,
+                     budgets=budgets, margins=margins, hazards=hazards, unchecked=unchecked, verdict=verdict,
+                     cautions=CAUTIONS,
                      total_s=time.perf_counter() - start)
 
 
 def _prefixed(stage: str, budget: Budget) -> Budget:
-    return Budget(name=f"{stage}.{budget.name}", value=budget.value, limit=budget.limit, unit=budget.unit,
-                  ok=budget.ok, median=budget.median, meaning=budget.meaning)
+    return Budget(name=f"{stage}.{budget.name}", value=float(budget.value), limit=budget.limit, unit=budget.unit,
+                  ok=None if budget.ok is None else bool(budget.ok), median=float(budget.median),
+                  meaning=budget.meaning)

@@ -17,6 +17,7 @@ Contents (:data:`DESCRIPTIONS`; a file appears when the stage behind it finished
 ``montecarlo.csv``         one row per Monte Carlo rollout: parameters, start, outcome, peaks
 ``roa_slices.csv``         the region-of-attraction slice maps, one row per start
 ``budgets.csv``            every budget of the run
+``trajectory.csv``         the planned swing-up at the loop rate (reference states, feed-forward inputs)
 =========================  ===============================================================================
 """
 
@@ -55,6 +56,7 @@ DESCRIPTIONS = {
     vf.MONTE_CARLO_CSV: "one row per Monte Carlo rollout: start, parameters, outcome, peaks",
     vf.ROA_SLICES_CSV: "region-of-attraction slice maps, one row per start",
     vf.BUDGETS_CSV: "every budget of the run: value, limit, unit, met",
+    vf.TRAJECTORY_CSV: "the planned swing-up at the loop rate: reference states and feed-forward inputs",
 }
 
 
@@ -136,5 +138,11 @@ def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
             put(folder, vf.MONTE_CARLO_CSV, vf.montecarlo_csv(rig, run.verification.monte_carlo))
             put(folder, vf.ROA_SLICES_CSV, vf.roa_slices_csv(rig, run.verification.region))
         put(folder, vf.BUDGETS_CSV, vf.budgets_csv(rig, run.budgets))
+        if run.swingup is not None:
+            s = run.swingup
+            notes = [f"plan: {s.plan.message}", "an open-loop reference: track it with feedback and hand over to the "
+                     "balance loop; never play the feed-forward alone"] + ([f"UNCHECKED: {s.unverified}"]
+                                                                           if s.unverified else [])
+            put(folder, vf.TRAJECTORY_CSV, vf.trajectory_csv(rig, s.t, s.X, s.U, notes))
     return RunFolder(path=staged.final_path, files=tuple(written), summary=result["summary"], report_s=report_s,
                      files_s=result["files_s"])

@@ -11,6 +11,9 @@ Fields (names are a contract: more may be added, none renamed):
 ``budgets``
     Every budget: ``name``, ``value``, ``limit``, ``unit``, ``ok`` (null without a limit), plus ``stage``,
     ``median`` and ``meaning``.
+``unchecked``
+    Results a stage produced but could not check (``what``, ``why``), e.g. a swing-up planned but not verified on
+    the nonlinear model: like a missing stage they leave the verdict without a decision.
 ``margins``
     Every judged margin: ``name``, ``value``, ``required``, ``unit``, ``ok``, ``ratio``.
 ``success_rates``
@@ -57,7 +60,7 @@ def success_json(run: DesignRun) -> dict[str, Any]:
     if run.verification is not None:
         mc = run.verification.monte_carlo
         out["balance"] = {"rate": mc.success_rate, "interval": list(mc.success_interval),
-                          "lower_bound": mc.success_interval[0], "required": run.options.required_success,
+                          "lower_bound": mc.success_interval[0], "required": run.required_success,
                           "rollouts": mc.rollouts, "successes": mc.successes, "outcomes": dict(mc.outcomes),
                           "method": "Wilson score interval, 95 %"}
     return out
@@ -79,6 +82,7 @@ def summary_fields(run: DesignRun, *, run_folder: str | None, files: list[str], 
         "limited_by": {"tightest_budget": None if v.tightest is None else budget_json(v.tightest),
                        "smallest_margin": None if v.smallest is None else margin_json(v.smallest)},
         "budgets": [budget_json(b) for b in run.budgets],
+        "unchecked": [{"what": what, "why": why} for what, why in run.unchecked],
         "margins": [margin_json(m) for m in run.margins],
         "success_rates": success_json(run),
         "stages": [{"name": s.name, "status": s.status, "seconds": s.seconds, "message": s.message}
@@ -89,7 +93,7 @@ def summary_fields(run: DesignRun, *, run_folder: str | None, files: list[str], 
         "rig_hash": run.rig.content_hash,
         "tool_version": __version__,
         "options": {"rollouts": o.rollouts, "seed": o.seed, "roa_samples": o.roa_samples, "horizon_s": o.horizon,
-                    "required_success": o.required_success},
+                    "required_success": run.required_success},
         "files": files,
         "hazards": [{"topic": h.topic, "text": h.text, "standards": list(h.standards)} for h in run.hazards],
         "warnings": list(run.rig.warnings),

@@ -17,6 +17,8 @@ Every file starts with the export header as ``# `` lines (rig hash, tool version
     ``meaning``.
 ``balance_responses.csv``
     ``response`` (``offset`` or ``tap``), ``t``, the states, the applied inputs.
+``trajectory.csv``
+    the planned swing-up at the loop rate: ``t``, the states (the reference), the inputs (the feed-forward).
 """
 
 from __future__ import annotations
@@ -38,6 +40,7 @@ MONTE_CARLO_CSV = "montecarlo.csv"
 ROA_SLICES_CSV = "roa_slices.csv"
 BUDGETS_CSV = "budgets.csv"
 RESPONSES_CSV = "balance_responses.csv"
+TRAJECTORY_CSV = "trajectory.csv"
 
 PARAMETER_UNITS = {"mass": "kg", "length": "m", "com": "m", "inertia": "kg m^2", "gravity": "m/s^2"}
 
@@ -144,4 +147,16 @@ def responses_csv(rig: Rig, responses: Sequence) -> str:
     for r in responses:
         for t, x, u in zip(r.t, r.X, r.U, strict=True):
             w.writerow([r.name, _number(t), *map(_number, x), *map(_number, u)])
+    return buf.getvalue()
+
+
+def trajectory_csv(rig: Rig, t: np.ndarray, X: np.ndarray, U: np.ndarray, notes: Sequence[str] = ()) -> str:
+    """``trajectory.csv`` (module docstring): one row per sample."""
+    buf = io.StringIO()
+    buf.write(hash_comment(export_header(rig, "planned swing-up (reference states and feed-forward inputs)",
+                                         units=[("t", "s")], notes=notes)))
+    w = _writer(buf)
+    w.writerow(["t", *rig.state_names, *rig.input_names])
+    for tk, x, u in zip(t, X, U, strict=True):
+        w.writerow([_number(tk), *map(_number, x), *map(_number, u)])
     return buf.getvalue()

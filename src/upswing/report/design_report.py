@@ -29,7 +29,7 @@ def run_section(run: DesignRun, report_s: float | None = None) -> Section:
         rows.append(("report (this page and its figures)", "done", f"{report_s:.2f}", "-"))
     o = run.options
     text = (f"Settings: {o.rollouts} Monte Carlo rollouts of {o.horizon:g} s, seed {o.seed}, {o.roa_samples} "
-            f"region-of-attraction starts in the first round, required success rate {o.required_success:.1%}. "
+            f"region-of-attraction starts in the first round, required success rate {run.required_success:.1%}. "
             f"The stages took {run.total_s:.1f} s in all.")
     return Section("How this run went", (
         Paragraph(text),
@@ -59,7 +59,7 @@ def design_document(run: DesignRun, *, made: datetime | None = None, report_s: f
     made = made or datetime.now()
     rig = run.rig
     handover = ("the verified level set x'Px = rho, inside which the swing-up hands over to the balance loop"
-                if run.swingup is not None else
+                if run.swingup is not None and not run.swingup.unverified else
                 "the verified level set x'Px = rho: the hand-over boundary a swing-up must reach")
     sections = [run_section(run, report_s), rig_section(rig)]
     if run.modes is not None:
@@ -68,7 +68,7 @@ def design_document(run: DesignRun, *, made: datetime | None = None, report_s: f
         sections.append(Section("Equilibria and modes", (Paragraph(_message(run, "modes")),), key="modes"))
     sections.append(balance_section(rig, run.balance, run.responses, failure=_message(run, "balance")))
     sections.append(swingup_section(rig, run.swingup, _message(run, "swing-up")))
-    sections.append(verification_section(rig, run.verification, run.options.required_success,
+    sections.append(verification_section(rig, run.verification, run.required_success,
                                          handover_label=handover, failure=_message(run, "verification")))
     sections.append(margins_section(run.margins, run.budgets))
     return Document(title=rig.name, kind=KIND, facts=facts(rig, made), verdict=run.verdict,

@@ -99,15 +99,21 @@ def region_blocks(rig: Rig, v: Verification, handover_label: str) -> list[Block]
     return blocks
 
 
-def budgets_blocks(budgets: Sequence[Budget], title: str) -> list[Block]:
+def budgets_blocks(budgets: Sequence[Budget], title: str, *, source: str = "the worst rollout that held",
+                   single: bool = False) -> list[Block]:
+    """Bars of the rated budgets against their limits, and a table of every line; ``source`` says whose values;
+    ``single`` for one trajectory (no median column)."""
     blocks: list[Block] = []
     if any(b.limit is not None for b in budgets):
         blocks.append(figure_image(figures_time.budget_bars_figure(budgets),
-                                   f"{title}: share of each limit used (worst rollout that held; 100 % = the limit).",
+                                   f"{title}: share of each limit used by {source} (100 % = the limit).",
                                    alt=f"{title} as bars against their limits"))
+    head = ("budget", "value", "limit", "unit", "met") if single else ("budget", "worst", "median", "limit", "unit",
+                                                                      "met")
     blocks.append(Table(
-        ("budget", "worst", "median", "limit", "unit", "met"),
-        tuple((b.name, f"{b.value:.4g}", f"{b.median:.4g}", "-" if b.limit is None else f"{b.limit:.4g}", b.unit,
+        head,
+        tuple((b.name, f"{b.value:.4g}", *(() if single else (f"{b.median:.4g}",)),
+               "-" if b.limit is None else f"{b.limit:.4g}", b.unit,
                "-" if b.ok is None else ("yes" if b.ok else "NO")) for b in budgets),
         f"{title}. Lines without a limit (base loads, tip speed, energy) have no rating in the rig file; they feed "
         "the hazard notes."))

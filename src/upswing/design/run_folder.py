@@ -89,9 +89,9 @@ def folder_stem(run: DesignRun) -> str:
 
 
 def _verification_json(run: DesignRun) -> dict[str, Any]:
-    from upswing.commands.verify import verification_json  # the one definition of upswing verify's fields
-
-    return {**rig_header(run.rig), **verification_json(run.verification), **safety_block()}
+    """What ``upswing verify --json`` prints for the same verification."""
+    return {**rig_header(run.rig), **vf.verification_json(run.verification), "units_extra": dict(vf.VERIFICATION_UNITS),
+            "warnings": list(run.rig.warnings), **safety_block()}
 
 
 def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:

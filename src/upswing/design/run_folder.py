@@ -140,9 +140,11 @@ def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
         put(folder, vf.BUDGETS_CSV, vf.budgets_csv(rig, run.budgets))
         if run.swingup is not None:
             s = run.swingup
-            notes = [f"plan: {s.plan.message}", "an open-loop reference: track it with feedback and hand over to the "
-                     "balance loop; never play the feed-forward alone"] + ([f"UNCHECKED: {s.unverified}"]
-                                                                           if s.unverified else [])
+            notes = [f"plan: {s.plan.message}", *s.notes,
+                     "an open-loop reference: track it with feedback and hand over to the balance loop; never play "
+                     "the feed-forward alone"]
+            if s.unverified:
+                notes.append(f"UNCHECKED: {s.unverified}")
             put(folder, vf.TRAJECTORY_CSV, vf.trajectory_csv(rig, s.t, s.X, s.U, notes))
     return RunFolder(path=staged.final_path, files=tuple(written), summary=result["summary"], report_s=report_s,
                      files_s=result["files_s"])

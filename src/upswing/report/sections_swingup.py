@@ -61,9 +61,10 @@ def swingup_section(rig: Rig, outcome: SwingUpOutcome | None, message: str) -> S
               "The planned swing-up in real time (loops; the last pose holds for a second).",
               alt="Animation of the planned swing-up"),
     ]
-    blocks += budgets_blocks(outcome.budgets, "Swing-up budgets (planned)", source="the planned trajectory at the "
-                             "loop rate", single=True)
+    blocks += budgets_blocks(outcome.budgets, "Swing-up budgets (planned)", source="the plan at its nodes and "
+                             "midpoints", single=True)
     blocks.append(Notes((
-        "Speeds are bounded at the optimizer's nodes; between them the interpolated plan can pass a bound by the "
-        "mesh's accuracy, which the budgets above measure on the loop-rate samples.",)))
+        "The plan's budgets are judged at its nodes and interval midpoints, where the optimizer enforces the "
+        "equations of motion and the limits; between them the plan is an interpolant and can pass a bound by about "
+        "the mesh's accuracy.", *outcome.notes)))
     return Section("Swing-up", tuple(blocks), key="swingup")

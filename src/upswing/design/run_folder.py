@@ -29,12 +29,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from upswing.commands.common import rig_header, safety_block
 from upswing.design.pipeline import DesignRun
 from upswing.design.summary import summary_fields
 from upswing.export import verification_files as vf
 from upswing.export.balance_files import balance_fields, balance_units, write_balance_files
 from upswing.export.folders import stage_output
+from upswing.export.header import rig_header, safety_block
 from upswing.export.jsonable import dumps
 from upswing.report.design_report import build_design_report
 

@@ -36,9 +36,9 @@ import math
 from typing import Any
 
 from upswing import __version__
-from upswing.commands.common import rig_header, safety_block
 from upswing.design.decision import DESIGN_RULE
 from upswing.design.pipeline import DesignRun
+from upswing.export.header import rig_header, safety_block
 from upswing.report.html import STATUS_WORDS
 from upswing.report.verdict import Margin
 from upswing.verification.budgets import Budget

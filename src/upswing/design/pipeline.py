@@ -59,6 +59,9 @@ from upswing.verification.montecarlo import check_spreads
 from upswing.verification.verdict import Verification, verify_balance
 
 STAGES = ("validate", "modes", "balance", "swing-up", "verification", "budgets and hazards")
+SWINGUP_ADVICE = ("the planned swing-up asks more than the rig file allows there: allow a longer swing-up, or a "
+                  "motor and gear with more speed or torque (upswing.synthesis.swingup.size_motor finds the smallest "
+                  "peak for a given time)")
 RUNNING_LOOP = "discrete_kalman"  # the margins of the loop the verification runs: discrete LQR + Kalman filter
 
 
@@ -292,6 +295,9 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
             margins += loop_margins(study.margins[RUNNING_LOOP])
         if swingup is not None:
             budgets += [_prefixed("swingup", b) for b in swingup.budgets]
+            for b in swingup.budgets:
+                if b.ok is False:
+                    details[f"swingup.{b.name}"] = SWINGUP_ADVICE
         if verification is not None:
             mc = verification.monte_carlo
             budgets += [_prefixed("balance", b) for b in verification.budgets]

@@ -187,8 +187,8 @@ class _Stages:
         return next((r.status for r in self.records if r.name == name), "not run")
 
     def run(self, name: str, function: Callable[[], Any], *, needs: tuple[str, ...] = (), fatal: bool = False) -> Any:
-        """Run ``function`` as stage ``name``; its value, or None when it did not finish. With ``fatal`` an
-        :class:`~upswing.errors.UpswingError` propagates (bad input: there is nothing to run on)."""
+        """Run ``function`` as stage ``name``; its value, or None when it did not finish. With ``fatal`` every
+        exception propagates (the run cannot go on without this stage's result: bad input, or a bug)."""
         if self.progress is not None:
             self.progress(name, None)
         unmet = [n for n in needs if self.status(n) != "done"]
@@ -209,8 +209,8 @@ class _Stages:
                     raise
                 status, message = "failed", str(exc)
             except Exception as exc:  # noqa: BLE001 - a bug in one stage must not hide what the others found
-                if os.environ.get("UPSWING_DEBUG"):
-                    raise
+                if fatal or os.environ.get("UPSWING_DEBUG"):
+                    raise  # without the stage's result there is nothing to run on: the CLI reports the bug
                 status = "failed"
                 message = (f"internal error ({type(exc).__name__}: {exc}); this is a bug in upswing, please report "
                            "it (UPSWING_DEBUG=1 shows the traceback)")
@@ -320,8 +320,7 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
     return DesignRun(rig=rig, rig_path=path, rig_bytes=raw, options=options, stages=tuple(stages.records),
                      modes=modes, balance=study, swingup=swingup, verification=verification, responses=responses,
                      budgets=budgets, margins=margins, hazards=hazards, unchecked=unchecked, verdict=verdict,
-                     cautions=CAUTIONS,
-                     total_s=time.perf_counter() - start)
+                     cautions=CAUTIONS, total_s=time.perf_counter() - start)
 
 
 def _prefixed(stage: str, budget: Budget) -> Budget:

@@ -18,6 +18,8 @@ Contents (:data:`DESCRIPTIONS`; a file appears when the stage behind it finished
 ``roa_slices.csv``         the region-of-attraction slice maps, one row per start
 ``budgets.csv``            every budget of the run
 ``trajectory.csv``         the planned swing-up at the loop rate (reference states, feed-forward inputs)
+``swingup.csv`` ...        the swing-up table for firmware (CSV, JSON, C header when it fits), in builds with
+                           the tracking synthesis (:mod:`upswing.export.swingup_files`)
 =========================  ===============================================================================
 """
 
@@ -57,7 +59,11 @@ DESCRIPTIONS = {
     vf.ROA_SLICES_CSV: "region-of-attraction slice maps, one row per start",
     vf.BUDGETS_CSV: "every budget of the run: value, limit, unit, met",
     vf.TRAJECTORY_CSV: "the planned swing-up at the loop rate: reference states and feed-forward inputs",
+    "swingup.csv": "swing-up table for firmware: reference, feed-forward and tracking gains per loop period",
+    "swingup.json": "the swing-up table as JSON",
+    "swingup_table.h": "the swing-up table as a C header (when it fits the memory budget)",
 }
+SWINGUP_TABLE_FILES = ("swingup.csv", "swingup.json", "swingup_table.h")  # need the tracking synthesis
 
 
 @dataclass(frozen=True)
@@ -92,6 +98,14 @@ def _verification_json(run: DesignRun) -> dict[str, Any]:
     """What ``upswing verify --json`` prints for the same verification."""
     return {**rig_header(run.rig), **vf.verification_json(run.verification), "units_extra": dict(vf.VERIFICATION_UNITS),
             "warnings": list(run.rig.warnings), **safety_block()}
+
+
+def _swingup_table_files(folder: Path, rig, table) -> list[str]:
+    """The swing-up exports of ``upswing.export.swingup_files`` (present in builds with the tracking synthesis)."""
+    from upswing.export.swingup_files import write_swingup_files
+
+    files = write_swingup_files(folder, rig, table)
+    return [Path(p).name for p in (files.csv, files.json, files.c_header) if p is not None]
 
 
 def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
@@ -146,5 +160,7 @@ def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
             if s.unverified:
                 notes.append(f"UNCHECKED: {s.unverified}")
             put(folder, vf.TRAJECTORY_CSV, vf.trajectory_csv(rig, s.t, s.X, s.U, notes))
+            if s.tracking is not None:
+                written += _swingup_table_files(folder, rig, s.tracking)
     return RunFolder(path=staged.final_path, files=tuple(written), summary=result["summary"], report_s=report_s,
                      files_s=result["files_s"])

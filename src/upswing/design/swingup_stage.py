@@ -12,6 +12,9 @@ rest within the rig's limits, Hermite–Simpson collocation with IPOPT) and turn
   can pass a bound by about the mesh's accuracy: how far it does on the loop-rate samples is reported as a note,
   not judged (the tracked, verified manoeuvre is what will be judged there).
 
+When this build has the tracking synthesis, the stage also designs the time-varying LQR table along the plan
+(:func:`upswing.synthesis.swingup.tracking.tvlqr_from_reference`), which the run folder exports for firmware.
+
 A plan that could not be found fails the stage (the rig cannot swing up within its limits as far as the optimizer can
 tell: do not power for a swing-up), with the planner's message of what was tried and what to change. A plan that was
 found is still *not verified*: tracking it with feedback and handing over to the balance loop on the uncertain
@@ -37,8 +40,12 @@ from upswing.verification.budgets import Budget
 from upswing.verification.hazards import HazardNote
 
 SWINGUP_MODULE = "upswing.synthesis.swingup"
+TRACKING_MODULE = "upswing.synthesis.swingup.tracking"
 UNVERIFIED = ("the swing-up was planned but not tracked and verified on the uncertain nonlinear model with the "
               "hand-over to the balance loop (this build has no swing-up tracking controller yet)")
+UNVERIFIED_TRACKED = ("the tracking gains along the planned swing-up were designed, but the tracked manoeuvre with "
+                      "the hand-over to the balance loop was not verified on the uncertain nonlinear model (this "
+                      "build does not verify the whole manoeuvre yet)")
 
 
 class StageUnavailable(Exception):  # noqa: N818 - a stage state, not an error condition of the user's making
@@ -59,6 +66,9 @@ class SwingUpOutcome:
         Planned states [m, rad, m/s, rad/s].
     U : ndarray, shape (K, n_inputs)
         Planned feed-forward inputs [N or N m].
+    tracking : TrackingTable or None
+        The time-varying LQR table along the plan at the loop rate (u = u_ff[k] - K[k] (x - x_ref[k])), when this
+        build has the tracking synthesis (:mod:`upswing.synthesis.swingup.tracking`).
     budgets : tuple of Budget
         What the plan asks of the rig (:func:`trajectory_budgets` at the nodes and midpoints), names without the
         stage prefix.
@@ -72,6 +82,7 @@ class SwingUpOutcome:
     t: np.ndarray
     X: np.ndarray
     U: np.ndarray
+    tracking: Any | None
     budgets: tuple[Budget, ...]
     notes: tuple[str, ...]
     unverified: str
@@ -80,6 +91,11 @@ class SwingUpOutcome:
 def swingup_available() -> bool:
     """Whether this build has the swing-up synthesis."""
     return importlib.util.find_spec(SWINGUP_MODULE) is not None
+
+
+def tracking_available() -> bool:
+    """Whether this build has the swing-up tracking synthesis (time-varying LQR along a plan)."""
+    return swingup_available() and importlib.util.find_spec(TRACKING_MODULE) is not None
 
 
 def _line(name: str, value: float, limit: float | None, unit: str, meaning: str, strict: bool = False) -> Budget:
@@ -177,4 +193,10 @@ def run_swingup_stage(rig: Rig, *, seed: int) -> SwingUpOutcome:
                   f"{b.unit} for {b.name} against its limit {b.limit:.4g} {b.unit} "
                   f"({100 * (between[b.name].value / b.limit - 1):.2g} % over; {b.value:.4g} {b.unit} at the nodes)"
                   for b in budgets if b.ok and between[b.name].ok is False)
-    return SwingUpOutcome(plan=plan, t=t, X=X, U=U, budgets=budgets, notes=notes, unverified=UNVERIFIED)
+    tracking = None
+    if tracking_available():
+        from upswing.synthesis.swingup.tracking import tvlqr_from_reference
+
+        tracking = tvlqr_from_reference(rig, plan.sample, plan.duration)
+    return SwingUpOutcome(plan=plan, t=t, X=X, U=U, tracking=tracking, budgets=budgets, notes=notes,
+                          unverified=UNVERIFIED if tracking is None else UNVERIFIED_TRACKED)

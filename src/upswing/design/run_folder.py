@@ -100,12 +100,13 @@ def _verification_json(run: DesignRun) -> dict[str, Any]:
             "warnings": list(run.rig.warnings), **safety_block()}
 
 
-def _swingup_table_files(folder: Path, rig, table) -> list[str]:
-    """The swing-up exports of ``upswing.export.swingup_files`` (present in builds with the tracking synthesis)."""
+def _swingup_table_files(folder: Path, rig, table) -> tuple[list[str], str]:
+    """The swing-up exports of ``upswing.export.swingup_files`` (present in builds with the tracking synthesis):
+    the file names written and the note on the C header (written, or why not)."""
     from upswing.export.swingup_files import write_swingup_files
 
     files = write_swingup_files(folder, rig, table)
-    return [Path(p).name for p in (files.csv, files.json, files.c_header) if p is not None]
+    return [Path(p).name for p in (files.csv, files.json, files.c_header) if p is not None], files.note
 
 
 def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
@@ -122,6 +123,7 @@ def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
     start = time.perf_counter()
     rig = run.rig
     written: list[str] = []
+    export_notes: list[str] = []
     result: dict[str, Any] = {}
 
     def put(folder: Path, name: str, text: str) -> None:
@@ -131,7 +133,7 @@ def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
     def finish(staging: Path, final: Path) -> None:
         files_s = time.perf_counter() - start
         summary = summary_fields(run, run_folder=str(final.absolute()), files=[*written, SUMMARY],
-                                 report_s=report_s, files_s=files_s)
+                                 report_s=report_s, files_s=files_s, export_notes=export_notes)
         put(staging, SUMMARY, dumps(summary) + "\n")
         result.update(summary=summary, files_s=files_s)
 
@@ -161,6 +163,8 @@ def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
                 notes.append(f"UNCHECKED: {s.unverified}")
             put(folder, vf.TRAJECTORY_CSV, vf.trajectory_csv(rig, s.t, s.X, s.U, notes))
             if s.tracking is not None:
-                written += _swingup_table_files(folder, rig, s.tracking)
+                names, note = _swingup_table_files(folder, rig, s.tracking)
+                written += names
+                export_notes.append(f"swing-up table: {note}")
     return RunFolder(path=staged.final_path, files=tuple(written), summary=result["summary"], report_s=report_s,
                      files_s=result["files_s"])

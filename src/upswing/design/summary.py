@@ -24,7 +24,8 @@ Fields (names are a contract: more may be added, none renamed):
     ``report_s``, ``files_s`` and ``total_s``.
 ``run_folder``, ``rig_hash``, ``tool_version``, ``options``, ``files``, ``hazards``, ``cautions``, ``standards``
     Where the run was written, the rig file's SHA-256, upswing's version, the run's settings, the files written,
-    the hazard notes and the cautions that travel with every result.
+    the hazard notes and the cautions that travel with every result; ``export_notes`` says what an export left out
+    and why (e.g. a swing-up C header larger than its memory budget).
 
 Plus the common header of every upswing JSON object (``tool``, ``rig``, ``state``, ``inputs``, ``units``,
 ``sign_convention``).
@@ -67,7 +68,7 @@ def success_json(run: DesignRun) -> dict[str, Any]:
 
 
 def summary_fields(run: DesignRun, *, run_folder: str | None, files: list[str], report_s: float | None,
-                   files_s: float | None) -> dict[str, Any]:
+                   files_s: float | None, export_notes: list[str] | None = None) -> dict[str, Any]:
     """The summary object of ``run`` (module docstring)."""
     v = run.verdict
     o = run.options
@@ -95,6 +96,7 @@ def summary_fields(run: DesignRun, *, run_folder: str | None, files: list[str], 
         "options": {"rollouts": o.rollouts, "seed": o.seed, "roa_samples": o.roa_samples, "horizon_s": o.horizon,
                     "required_success": run.required_success},
         "files": files,
+        "export_notes": list(export_notes or []),
         "hazards": [{"topic": h.topic, "text": h.text, "standards": list(h.standards)} for h in run.hazards],
         "warnings": list(run.rig.warnings),
         "units_extra": {"timing": "s", "success_rates": "fraction", "budgets": "each line's unit",

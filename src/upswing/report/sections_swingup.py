@@ -3,6 +3,8 @@ effort-speed plane, a filmstrip of poses and an animation; or a plain statement 
 
 from __future__ import annotations
 
+import numpy as np
+
 from upswing.design.swingup_stage import SwingUpOutcome
 from upswing.model.rig import Rig
 from upswing.report import figures_rig, figures_time
@@ -61,6 +63,14 @@ def swingup_section(rig: Rig, outcome: SwingUpOutcome | None, message: str) -> S
               "The planned swing-up in real time (loops; the last pose holds for a second).",
               alt="Animation of the planned swing-up"),
     ]
+    if outcome.tracking is not None:
+        table = outcome.tracking
+        gains = np.abs(np.asarray(table.K))
+        blocks.append(Paragraph(
+            f"Tracking gains: a time-varying LQR table of {table.n_rows} rows at {table.sample_rate:g} Hz along the "
+            f"plan (u = u_ff[k] - K[k] (x - x_ref[k]), angle errors wrapped, saturated at peak; the balance loop "
+            f"takes over after the last row, at {table.end_time:.2f} s). Largest gain entry "
+            f"{gains.max():.3g}; exported as swingup.csv and swingup.json (and a C header when it fits)."))
     blocks += budgets_blocks(outcome.budgets, "Swing-up budgets (planned)", source="the plan at its nodes and "
                              "midpoints", single=True)
     blocks.append(Notes((

@@ -128,6 +128,49 @@ class VerificationSettings:
 
 
 @dataclass(frozen=True)
+class SwingUpSettings:
+    """The rig file's ``[swingup]`` table (see :data:`upswing.model.schema.SWINGUP` for every key's meaning).
+
+    ``None`` means "not given": the energy law then uses its documented family default
+    (:data:`upswing.synthesis.swingup.energy.FAMILY_DEFAULTS`), and the hand-over uses the region-of-attraction
+    estimate for ``handover_level``.
+
+    Attributes
+    ----------
+    energy_gain : float or None
+        Acrobot/pendubot energy weight as a fraction of its well-posedness bound [-].
+    collocated_kp, collocated_kd : float or None
+        Gains of the collocated joint's loop [1/s^2], [1/s].
+    energy_deadband : float
+        Fade-out band of the energy term, fraction of the hanging-to-upright energy gap [-].
+    pump_gain : float
+        Cart energy-pumping gain [-].
+    pump_limit : float
+        Largest pumping acceleration [multiples of g].
+    rail_stiffness, rail_damping : float
+        Cart centring during pumping [1/s^2], [1/s].
+    energy_margin : float
+        Target energy above the upright level, fraction of the gap [-].
+    handover_level : float or None
+        rho_in of the hand-over rule [-] (cost-to-go level).
+    release_factor : float
+        rho_out / rho_in [-].
+    """
+
+    energy_gain: float | None = None
+    collocated_kp: float | None = None
+    collocated_kd: float | None = None
+    energy_deadband: float = 0.075
+    pump_gain: float = 2.5
+    pump_limit: float = 1.0
+    rail_stiffness: float = 2.0
+    rail_damping: float = 2.8
+    energy_margin: float = 0.01
+    handover_level: float | None = None
+    release_factor: float = 1.5
+
+
+@dataclass(frozen=True)
 class Rig:
     """A validated double-pendulum rig. Immutable; build new rigs with :meth:`with_parameters`.
 
@@ -148,6 +191,7 @@ class Rig:
     sensors: Sensors
     uncertainty: Uncertainty
     verification: VerificationSettings = field(default_factory=VerificationSettings)
+    swingup: SwingUpSettings = field(default_factory=SwingUpSettings)
     description: str = ""
     source: str = "<table>"
     content_hash: str = ""
@@ -181,13 +225,7 @@ class Rig:
     @property
     def family(self) -> str:
         """``acrobot``, ``pendubot``, ``cart``, ``fully actuated`` or ``custom`` (other actuator sets)."""
-        presets = {
-            ("fixed", ("elbow",)): "acrobot",
-            ("fixed", ("shoulder",)): "pendubot",
-            ("cart", ("cart",)): "cart",
-            ("fixed", ("shoulder", "elbow")): "fully actuated",
-        }
-        return presets.get((self.base, self.actuated), "custom")
+        return _FAMILIES.get((self.base, self.actuated), "custom")
 
     def actuator(self, joint: str) -> Actuator:
         for a in self.actuators:
@@ -385,10 +423,11 @@ class _Loader:
         uncertainty = self.uncertainty(table, base)
         verification = VerificationSettings(**self.read(self.sub_table(table, "verification", "", False) or {},
                                                         schema.VERIFICATION, "verification"))
+        swingup = self.swingup(table, base, actuated)
         return Rig(
             name=top["name"], description=top["description"], base=base, actuated=actuated,
             gravity=top["gravity"], link1=link1, link2=link2, cart=cart, actuators=actuators,
-            balance=balance, sensors=sensors, uncertainty=uncertainty, verification=verification,
+            balance=balance, sensors=sensors, uncertainty=uncertainty, verification=verification, swingup=swingup,
             source=self.source, warnings=tuple(self.warnings),
         )
 
@@ -467,6 +506,27 @@ class _Loader:
                 if spread:
                     spreads.append((f"{group}.{name}", spread))
         return Uncertainty(distribution=values["distribution"], spreads=tuple(spreads))
+
+
+    def swingup(self, table: dict[str, Any], base: str, actuated: tuple[str, ...]) -> SwingUpSettings:
+        given = self.sub_table(table, "swingup", "", False) or {}
+        values = self.read(given, schema.SWINGUP, "swingup")
+        family = _FAMILIES.get((base, actuated), "custom")
+        used = schema.SWINGUP_KEYS_BY_FAMILY[family]
+        for name in given:
+            if name not in used:
+                raise self.fail(f"swingup.{name}", f"is not used by the {family} family (keys read there: "
+                                                   f"{', '.join(used)})")
+        return SwingUpSettings(**values)
+
+
+# (base, actuated) -> family name; Rig.family reads the same table.
+_FAMILIES = {
+    ("fixed", ("elbow",)): "acrobot",
+    ("fixed", ("shoulder",)): "pendubot",
+    ("cart", ("cart",)): "cart",
+    ("fixed", ("shoulder", "elbow")): "fully actuated",
+}
 
 
 def _describe(key: Key) -> str:

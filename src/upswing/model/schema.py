@@ -227,8 +227,57 @@ VERIFICATION = Table(
     ),
 )
 
-TABLES: tuple[Table, ...] = (TOP, LINK, CART, ACTUATOR, BALANCE, SENSORS, UNCERTAINTY, VERIFICATION)
+SWINGUP = Table(
+    "swingup",
+    "Energy-based swing-up and the hand-over to the balance controller (see upswing.synthesis.swingup.energy). "
+    "Keys a family's law does not use are an error; keys left out take the documented default, which for the "
+    "collocated-loop gains depends on the family.",
+    (
+        Key("energy_gain", "float", "-", "Acrobot and pendubot: energy weight k_E of the Lyapunov function, as a "
+            "fraction of its well-posedness bound 1 / (max alpha_bar * (E_target - E_hanging)); default 0.85 "
+            "(acrobot), 0.3 (pendubot).", default=None, low=0.0, high=1.0, low_open=True, high_open=True),
+        Key("collocated_kp", "float", "1/s^2", "Acrobot and pendubot: stiffness k_P of the collocated (actuated) "
+            "joint's loop; default 10 (acrobot), 60 (pendubot).", default=None, low=0.0),
+        Key("collocated_kd", "float", "1/s", "Acrobot and pendubot: damping k_D of the collocated joint's loop; "
+            "default 1 (acrobot), 10 (pendubot).", default=None, low=0.0, low_open=True),
+        Key("energy_deadband", "float", "-", "Acrobot and pendubot: the energy term fades out linearly inside "
+            "this band around the target, as a fraction of the hanging-to-upright energy gap.", default=0.075,
+            low=0.0, high=1.0),
+        Key("pump_gain", "float", "-", "Cart rig: energy-pumping gain k, dimensionless: a shortfall of the whole "
+            "hanging-to-upright gap with H = sqrt(gap * link mass) asks for k times pump_limit.", default=2.5,
+            low=0.0, low_open=True),
+        Key("pump_limit", "float", "g", "Cart rig: largest cart acceleration the pumping term asks for, in "
+            "multiples of gravity (the saturation level n of Astrom & Furuta, 2000).", default=1.0, low=0.0,
+            low_open=True, high=10.0),
+        Key("rail_stiffness", "float", "1/s^2", "Cart rig: pull of the cart toward the rail's centre during "
+            "pumping.", default=2.0, low=0.0),
+        Key("rail_damping", "float", "1/s", "Cart rig: damping of the cart's motion during pumping.",
+            default=2.8, low=0.0),
+        Key("energy_margin", "float", "-", "Target energy above the upright level, as a fraction of the "
+            "hanging-to-upright energy gap.", default=0.01, low=0.0, high=0.5),
+        Key("handover_level", "float", "-", "Cost-to-go level rho_in: hand over to the balance controller when "
+            "(x - x_eq)' P (x - x_eq) <= rho_in (P: the discrete balance design's Riccati solution); default: "
+            "the region-of-attraction estimate.", default=None, low=0.0, low_open=True),
+        Key("release_factor", "float", "-", "Hysteresis: give control back to the swing-up law only above "
+            "rho_out = release_factor * rho_in.", default=1.5, low=1.0, low_open=True, high=100.0),
+    ),
+)
+
+TABLES: tuple[Table, ...] = (TOP, LINK, CART, ACTUATOR, BALANCE, SENSORS, UNCERTAINTY, VERIFICATION, SWINGUP)
 
 # Table names a rig file may have at its top level (LINK serves both links; ACTUATOR has one sub-table per joint).
 TOP_LEVEL_TABLES: tuple[str, ...] = ("link1", "link2", "cart", "actuator", "balance", "sensors", "uncertainty",
-                                     "verification")
+                                     "verification", "swingup")
+
+# Which [swingup] keys each family reads; the loader rejects the others (a gain that silently does nothing is worse
+# than an error). Families without an energy law (fully actuated, custom) read only the hand-over keys.
+SWINGUP_KEYS_BY_FAMILY: dict[str, tuple[str, ...]] = {
+    "acrobot": ("energy_gain", "collocated_kp", "collocated_kd", "energy_deadband", "energy_margin",
+                "handover_level", "release_factor"),
+    "pendubot": ("energy_gain", "collocated_kp", "collocated_kd", "energy_deadband", "energy_margin",
+                 "handover_level", "release_factor"),
+    "cart": ("pump_gain", "pump_limit", "rail_stiffness", "rail_damping", "energy_margin", "handover_level",
+             "release_factor"),
+    "fully actuated": ("handover_level", "release_factor"),
+    "custom": ("handover_level", "release_factor"),
+}

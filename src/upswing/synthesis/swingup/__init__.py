@@ -1,4 +1,5 @@
-"""Swing-up synthesis by trajectory optimization, and motor sizing on top of it.
+"""Swing-up synthesis: trajectory optimization, motor sizing, time-varying LQR tracking (:mod:`.tracking`),
+energy-based laws (:mod:`.energy`) and the hand-over to the balance controller.
 
 Public API::
 

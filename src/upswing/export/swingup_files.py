@@ -1,0 +1,254 @@
+"""The swing-up table for firmware: ``swingup.csv``, the same table as ``swingup.json``, and a C header.
+
+``swingup.csv`` (a contract, issue 5): ``#`` comment lines first (rig name and content hash, tool version,
+conventions, the law, units, cautions), then one header row and one row per controller sample with the columns
+
+    t, <state names> (the reference x_ref), <input names> (the feed-forward u_ff), K_<input>_<state> ...
+
+where the gains follow K's row-major order (for each input, every state). For the sample that starts at row k the
+firmware applies u = u_ff[k] - K[k] (x - x_ref[k]) (angle errors wrapped to (-pi, pi]), holds it until the next
+row, saturates it at ``peak``, and after the last row hands over to the balance controller.
+
+The C header ``swingup_table.h`` declares the table as ``const float`` arrays; the data are defined in the one
+translation unit that defines ``UPSWING_SWINGUP_TABLE_DEFINE`` before including it. It is written only when the
+arrays fit in the stated memory budget (default 64 KiB), since a microcontroller's flash is the limit; otherwise
+the result says how many bytes it would need.
+
+These writers put files into a folder the caller provides (the CLI stages it with
+:func:`upswing.export.folders.stage_output`, so a run is never half-written and never overwrites another).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from upswing import __version__
+from upswing.commands.common import rig_header, safety_block
+from upswing.errors import RequestError
+from upswing.export.jsonable import dumps
+from upswing.model.rig import INPUT_UNITS, STATE_UNITS, Rig
+from upswing.safety import CAUTIONS, GOVERNING, STANDARDS
+from upswing.synthesis.swingup.tracking import TrackingTable
+
+CSV_NAME = "swingup.csv"
+JSON_NAME = "swingup.json"
+C_HEADER_NAME = "swingup_table.h"
+DEFAULT_C_BUDGET_BYTES = 64 * 1024
+FLOAT_BYTES = 4  # the C table stores IEEE 754 single precision
+
+LAW_TEXT = ("for the sample starting at row k: u = u_ff[k] - K[k] (x - x_ref[k]), angle errors wrapped to "
+            "(-pi, pi]; held until the next row; saturated at |u| <= peak; after the last row the balance "
+            "controller takes over")
+CONVENTIONS_TEXT = ("theta1 from the upward vertical, theta2 relative to link 1, both counter-clockwise positive; "
+                    "cart x positive to the right, 0 at the rail's centre; SI units")
+
+
+def gain_columns(table: TrackingTable) -> list[str]:
+    """``K_<input>_<state>`` for every gain entry, in K's row-major order."""
+    return [f"K_{u}_{s}" for u in table.input_names for s in table.state_names]
+
+
+def csv_columns(table: TrackingTable) -> list[str]:
+    """All column names of ``swingup.csv`` in order: t, states, inputs, gains."""
+    return ["t", *table.state_names, *table.input_names, *gain_columns(table)]
+
+
+def _check(rig: Rig, table: TrackingTable) -> None:
+    if table.state_names != rig.state_names or table.input_names != rig.input_names:
+        raise RequestError(f"the table's states/inputs ({', '.join(table.state_names)} / "
+                           f"{', '.join(table.input_names)}) are not the rig's ({', '.join(rig.state_names)} / "
+                           f"{', '.join(rig.input_names)}); export the table with the rig it was made for")
+    for name, a in (("t", table.t), ("x_ref", table.x_ref), ("u_ff", table.u_ff), ("K", table.K)):
+        if not np.all(np.isfinite(a)):
+            raise RequestError(f"the table's {name} holds non-finite values; it cannot be exported")
+
+
+def header_lines(rig: Rig, table: TrackingTable) -> list[str]:
+    """The comment block shared by the CSV and the C header, one string per line (no comment marker).
+
+    Rig identity (name, source, SHA-256 of the rig file), tool version, sample rate and size, the law, conventions,
+    units, limits, cautions and the standards they refer to.
+    """
+    units = [f"{s} {STATE_UNITS[s]}" for s in table.state_names] + [f"{u} {INPUT_UNITS[u]}"
+                                                                     for u in table.input_names]
+    peaks = ", ".join(f"{u} {p:g} {INPUT_UNITS[u]}" for u, p in zip(table.input_names, table.peak, strict=True))
+    lines = [
+        "upswing swing-up table",
+        f"rig: {rig.name} ({rig.source}), family {rig.family}",
+        f"rig file sha256: {rig.content_hash or 'unknown (rig not loaded from a file)'}",
+        f"tool: upswing {__version__}",
+        f"sample rate: {table.sample_rate:g} Hz; rows: {table.n_rows}; t from {table.t[0]:g} s; balance takes over "
+        f"at t = {table.end_time:g} s",
+        f"law: {LAW_TEXT}",
+        f"conventions: {CONVENTIONS_TEXT}",
+        "units: t s; " + "; ".join(units) + "; K_<input>_<state> in input unit per state unit",
+        f"peak: {peaks}",
+    ]
+    lines += [f"caution: {c}" for c in CAUTIONS if c != GOVERNING]
+    lines += [f"standard: {number} ({subject})" for number, subject in STANDARDS.items()]
+    lines.append(f"governing: {GOVERNING}")
+    return lines
+
+
+def csv_text(rig: Rig, table: TrackingTable) -> str:
+    """The full text of ``swingup.csv`` (numbers in shortest round-trip form)."""
+    _check(rig, table)
+    out = [f"# {line}" for line in header_lines(rig, table)]
+    out.append(",".join(csv_columns(table)))
+    n_gain = table.K.shape[1] * table.K.shape[2]
+    data = np.hstack([table.t[:, None], table.x_ref, table.u_ff, table.K.reshape(table.n_rows, n_gain)])
+    out += [",".join(repr(float(v)) for v in row) for row in data]
+    return "\n".join(out) + "\n"
+
+
+def json_object(rig: Rig, table: TrackingTable) -> dict[str, Any]:
+    """The table as one JSON-ready object: the common header, the law, and t, x_ref, u_ff, K as lists."""
+    _check(rig, table)
+    return {
+        **rig_header(rig),
+        "kind": "swingup table",
+        "law": LAW_TEXT,
+        "conventions": CONVENTIONS_TEXT,
+        "sample_rate": table.sample_rate,
+        "rows": table.n_rows,
+        "end_time": table.end_time,
+        "peak": table.peak,
+        "columns": csv_columns(table),
+        "t": table.t,
+        "x_ref": table.x_ref,
+        "u_ff": table.u_ff,
+        "K": table.K,
+        **safety_block(),
+    }
+
+
+def c_table_bytes(table: TrackingTable) -> int:
+    """Bytes the C arrays occupy: (N (n + m + m n) + m) single-precision floats."""
+    n, m = len(table.state_names), len(table.input_names)
+    return FLOAT_BYTES * (table.n_rows * (n + m + m * n) + m)
+
+
+def _c_float(value: float) -> str:
+    """A C single-precision literal that round-trips the float32 value (9 significant digits)."""
+    text = f"{float(np.float32(value)):.9g}"
+    if not any(c in text for c in ".en"):
+        text += ".0"
+    return text + "f"
+
+
+def _c_rows(a: np.ndarray, indent: str) -> str:
+    if a.ndim == 1:
+        return "{" + ", ".join(_c_float(v) for v in a) + "}"
+    inner = (",\n" + indent + " ").join(_c_rows(row, indent + " ") for row in a)
+    return "{" + inner + "}"
+
+
+def c_header_text(rig: Rig, table: TrackingTable) -> str:
+    """The C99 header: macros for the sizes and rate, ``extern const float`` declarations, and the definitions
+    behind ``#ifdef UPSWING_SWINGUP_TABLE_DEFINE``."""
+    _check(rig, table)
+    comment = "\n".join(f" * {line.replace('*/', '* /')}" for line in header_lines(rig, table))
+    n, m = len(table.state_names), len(table.input_names)
+    return f"""/*
+{comment}
+ *
+ * State order: {", ".join(table.state_names)}. Input order: {", ".join(table.input_names)}.
+ * upswing_swingup_K[k][i][j] is the gain from state j to input i in row k (K_<input>_<state> in swingup.csv).
+ * Define UPSWING_SWINGUP_TABLE_DEFINE in exactly one .c file before including this header.
+ */
+#ifndef UPSWING_SWINGUP_TABLE_H
+#define UPSWING_SWINGUP_TABLE_H
+
+#define UPSWING_SWINGUP_ROWS {table.n_rows}
+#define UPSWING_SWINGUP_STATES {n}
+#define UPSWING_SWINGUP_INPUTS {m}
+#define UPSWING_SWINGUP_SAMPLE_RATE_HZ {_c_float(table.sample_rate)}
+#define UPSWING_SWINGUP_T0_S {_c_float(table.t[0])}
+#define UPSWING_SWINGUP_BYTES {c_table_bytes(table)}
+
+extern const float upswing_swingup_peak[UPSWING_SWINGUP_INPUTS];
+extern const float upswing_swingup_x_ref[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_STATES];
+extern const float upswing_swingup_u_ff[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS];
+extern const float upswing_swingup_K[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS][UPSWING_SWINGUP_STATES];
+
+#ifdef UPSWING_SWINGUP_TABLE_DEFINE
+const float upswing_swingup_peak[UPSWING_SWINGUP_INPUTS] = {_c_rows(table.peak, "")};
+const float upswing_swingup_x_ref[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_STATES] =
+{_c_rows(table.x_ref, "")};
+const float upswing_swingup_u_ff[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS] =
+{_c_rows(table.u_ff, "")};
+const float upswing_swingup_K[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS][UPSWING_SWINGUP_STATES] =
+{_c_rows(table.K, "")};
+#endif /* UPSWING_SWINGUP_TABLE_DEFINE */
+
+#endif /* UPSWING_SWINGUP_TABLE_H */
+"""
+
+
+@dataclass(frozen=True)
+class SwingUpFiles:
+    """What :func:`write_swingup_files` wrote.
+
+    Attributes
+    ----------
+    csv, json : Path
+        ``swingup.csv`` and ``swingup.json``.
+    c_header : Path or None
+        ``swingup_table.h``, or ``None`` when the table does not fit in the budget.
+    c_bytes : int
+        Bytes the C arrays need.
+    c_budget_bytes : int
+        The memory budget the C header was checked against.
+    note : str
+        Why the C header was or was not written.
+    """
+
+    csv: Path
+    json: Path
+    c_header: Path | None
+    c_bytes: int
+    c_budget_bytes: int
+    note: str
+
+
+def write_swingup_files(folder: str | Path, rig: Rig, table: TrackingTable, *,
+                        c_budget_bytes: int = DEFAULT_C_BUDGET_BYTES) -> SwingUpFiles:
+    """Write ``swingup.csv``, ``swingup.json`` and (when it fits) ``swingup_table.h`` into ``folder``.
+
+    Parameters
+    ----------
+    folder : str or Path
+        An existing folder (typically the staging folder of :func:`upswing.export.folders.stage_output`).
+    rig : Rig
+        The rig the table was made for (its content hash goes into the headers).
+    table : TrackingTable
+    c_budget_bytes : int
+        Memory available for the C table [bytes]; default 64 KiB.
+
+    Raises
+    ------
+    RequestError
+        When the folder does not exist, the budget is not positive, or the table does not belong to the rig.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise RequestError(f"{folder}: export folder does not exist")
+    if c_budget_bytes <= 0:
+        raise RequestError(f"C table memory budget must be a positive number of bytes; got {c_budget_bytes}")
+    csv_path = folder / CSV_NAME
+    json_path = folder / JSON_NAME
+    csv_path.write_text(csv_text(rig, table), encoding="utf-8")
+    json_path.write_text(dumps(json_object(rig, table)) + "\n", encoding="utf-8")
+    need = c_table_bytes(table)
+    if need > c_budget_bytes:
+        note = (f"C header not written: the table needs {need} bytes of single-precision floats, more than the "
+                f"budget of {c_budget_bytes} bytes; raise the budget, lower the rate or shorten the swing-up")
+        return SwingUpFiles(csv_path, json_path, None, need, c_budget_bytes, note)
+    c_path = folder / C_HEADER_NAME
+    c_path.write_text(c_header_text(rig, table), encoding="utf-8")
+    note = f"C header written: {need} bytes of {c_budget_bytes} available"
+    return SwingUpFiles(csv_path, json_path, c_path, need, c_budget_bytes, note)

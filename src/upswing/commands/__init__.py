@@ -3,6 +3,6 @@
 
 from __future__ import annotations
 
-from upswing.commands import balance, check, modes, verify
+from upswing.commands import balance, check, design, modes, verify
 
-COMMANDS = (check, modes, balance, verify)
+COMMANDS = (check, modes, balance, verify, design)

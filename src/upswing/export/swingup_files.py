@@ -27,8 +27,8 @@ from typing import Any
 import numpy as np
 
 from upswing import __version__
-from upswing.commands.common import rig_header, safety_block
 from upswing.errors import RequestError
+from upswing.export.header import rig_header, safety_block
 from upswing.export.jsonable import dumps
 from upswing.model.rig import INPUT_UNITS, STATE_UNITS, Rig
 from upswing.safety import CAUTIONS, GOVERNING, STANDARDS

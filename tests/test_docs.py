@@ -380,3 +380,13 @@ def test_safety_example_numbers() -> None:
                    f"about {0.5 * mass * drive.max_speed**2:.1f} J",
                    f"takes about {drive.max_speed**2 / (2 * drive.peak / mass):.1f} m"):
         assert quoted in flat, f"docs/safety.md should quote {quoted!r} for the demo rigs as they are now"
+
+
+def test_user_guide_lists_every_run_folder_file() -> None:
+    # The run-folder table of docs/user-guide.md names exactly the files upswing design can write.
+    from upswing.design.run_folder import DESCRIPTIONS
+
+    guide = (ROOT / "docs" / "user-guide.md").read_text(encoding="utf-8")
+    section = guide[guide.index("What the run folder holds"):guide.index("**The verdict**")]
+    listed = set(re.findall(r"`([a-z_]+\.(?:html|json|toml|csv|h))`", section))
+    assert listed == set(DESCRIPTIONS)

@@ -1,4 +1,4 @@
-"""The collocation transcription, its interpolants and the optimizer's compact equations of motion.
+"""The collocation problem (direct collocation), its interpolants and the optimizer's compact equations of motion.
 
 External references:
 - Kelly 2017, "An introduction to trajectory optimization: how to do your own direct collocation", SIAM Review

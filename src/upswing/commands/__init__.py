@@ -3,6 +3,6 @@
 
 from __future__ import annotations
 
-from upswing.commands import balance, check, modes, swingup, verify
+from upswing.commands import balance, check, design, modes, swingup, verify
 
-COMMANDS = (check, modes, balance, verify, swingup)
+COMMANDS = (check, modes, balance, verify, swingup, design)

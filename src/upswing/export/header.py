@@ -10,10 +10,11 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 from upswing import __version__
 from upswing.model.rig import Rig
-from upswing.safety import GOVERNING, STANDARDS
+from upswing.safety import CAUTIONS, GOVERNING, STANDARDS
 
 TRIAL_CAUTION = ("Try these values first at reduced actuator limits (e.g. a third of peak) with an emergency stop "
                  "within reach (ISO 13850).")
@@ -107,3 +108,23 @@ def header_json(h: ExportHeader) -> dict[str, object]:
         "units": dict(h.units), "caution": h.caution, "standards": list(h.standards), "governing": h.governing,
         "notes": list(h.notes),
     }
+
+
+def rig_header(rig: Rig) -> dict[str, Any]:
+    """Fields every JSON object starts with: tool, rig, names and units in the conventions' order."""
+    return {
+        "tool": {"name": "upswing", "version": __version__},
+        "rig": {"name": rig.name, "source": rig.source, "content_hash": rig.content_hash, "family": rig.family,
+                "base": rig.base},
+        "state": list(rig.state_names),
+        "inputs": list(rig.input_names),
+        "units": {"state": list(rig.state_units), "inputs": list(rig.input_units), "time": "s",
+                  "frequency": "Hz", "eigenvalues": "1/s"},
+        "sign_convention": "u = u_eq - K (x - x_eq); angles counter-clockwise positive, theta1 from the upward "
+                           "vertical, theta2 relative to link 1; angle errors wrapped to (-pi, pi]",
+    }
+
+
+def safety_block() -> dict[str, Any]:
+    """The cautions and cited standards every JSON object a person acts on carries."""
+    return {"cautions": list(CAUTIONS), "standards": dict(STANDARDS)}

@@ -27,9 +27,16 @@ from typing import Any
 
 import numpy as np
 
-from upswing.commands.common import rig_header, safety_block
 from upswing.errors import RequestError
-from upswing.export.header import ExportHeader, c_comment, export_header, hash_comment, header_json
+from upswing.export.header import (
+    ExportHeader,
+    c_comment,
+    export_header,
+    hash_comment,
+    header_json,
+    rig_header,
+    safety_block,
+)
 from upswing.export.header import header_lines as export_header_lines
 from upswing.export.jsonable import dumps
 from upswing.model.rig import INPUT_UNITS, Rig

@@ -16,7 +16,7 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
-from matplotlib.ticker import MultipleLocator
+from matplotlib.ticker import Locator, MaxNLocator, MultipleLocator
 
 from upswing.errors import RequestError
 from upswing.model.rig import Actuator, Rig
@@ -73,9 +73,12 @@ def _legend_above(ax: Axes) -> None:
     ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=4, borderaxespad=0.15, handlelength=3.2)
 
 
-def _angle_locator(values: np.ndarray) -> MultipleLocator:
-    """Ticks every 90 * 2^k deg: the smallest such step giving at most ~8 ticks."""
+def _angle_locator(values: np.ndarray) -> Locator:
+    """Ticks every 90 * 2^k deg: the smallest such step giving at most ~8 ticks; ordinary round steps for motions
+    smaller than a right angle (a balance loop's few degrees), which 90 deg steps would leave with one tick."""
     span = float(np.ptp(values)) if values.size else 0.0
+    if span < 90.0:
+        return MaxNLocator(nbins=6, steps=[1, 2, 2.5, 5, 10])
     return MultipleLocator(90.0 * 2.0 ** max(0, math.ceil(math.log2(max(span, 1.0) / (7 * 90.0)))))
 
 

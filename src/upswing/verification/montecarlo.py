@@ -80,6 +80,8 @@ class MonteCarloResult:
     results : Rollouts
     parameters : ndarray (N, 16)
         The drawn parameters.
+    initial_states : ndarray (N, n_states)
+        The drawn starts (absolute states, rig state order) [m, rad, m/s, rad/s].
     simulate_s : float
         Wall time in the batch simulation [s].
     horizon_s : float
@@ -98,6 +100,7 @@ class MonteCarloResult:
     distribution: str
     results: Rollouts
     parameters: np.ndarray
+    initial_states: np.ndarray
     simulate_s: float
     horizon_s: float
 
@@ -221,5 +224,6 @@ def run_monte_carlo(rig: Rig, controller: Controller, rollouts: int, *, seed: in
         rollouts=int(rollouts), seed=int(seed), successes=successes, success_rate=successes / int(rollouts),
         success_interval=wilson_interval(successes, int(rollouts)), outcomes=outcomes,
         correlations=failure_correlations(rig, results, P), clipped=clipped, offsets=offsets,
-        distribution=rig.uncertainty.distribution, results=results, parameters=P, simulate_s=seconds,
+        distribution=rig.uncertainty.distribution, results=results, parameters=P, initial_states=x0,
+        simulate_s=seconds,
         horizon_s=max(1, round(setup.horizon * controller.sample_rate)) / controller.sample_rate)

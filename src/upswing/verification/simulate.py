@@ -394,6 +394,7 @@ def simulate(rig: Rig, controller: Controller, x0: np.ndarray, params: np.ndarra
             rec_u[k + 1:, done] = T[joint][:, ended].T
         keep = ~ended
         pos, memory, pipe = pos[keep], memory[keep], pipe[:, :, keep]
+        y_hold = y_hold[keep]  # a drop-out may outlast some rollouts: its frozen readings shrink with them
         S, C = np.ascontiguousarray(S[:, keep]), np.ascontiguousarray(C[:, keep])
         acc_u, acc_x = np.ascontiguousarray(acc_u[:, keep]), np.ascontiguousarray(acc_x[:, keep])
         Y, T, Mon, status, work = buffers(pos.size)

@@ -245,6 +245,8 @@ class Collocation:
         for i, index in enumerate(layout.speed_index):
             top = layout.max_speed[i] / layout.state_scale[index]
             opti.subject_to(opti.bounded(-top, self.X[index, :], top))
+            if hermite:  # the midpoints are states the rig passes through too: bound them as the nodes
+                opti.subject_to(opti.bounded(-top, self.Xc[index, :], top))
             if layout.motor_line[i]:
                 # -stall (1 + w / w0) <= u <= stall (1 - w / w0)  <=>  -stall <= u + stall w / w0 <= stall
                 stall = self.p_stall[i] / su[i]
@@ -255,6 +257,8 @@ class Collocation:
         if layout.cart_travel is not None:
             top = layout.cart_travel / layout.state_scale[0]
             opti.subject_to(opti.bounded(-top, self.X[0, :], top))
+            if hermite:
+                opti.subject_to(opti.bounded(-top, self.Xc[0, :], top))
         if layout.minimum_time:
             opti.subject_to(opti.bounded(self.p_t_low / self.p_duration, self.T_scaled,
                                          self.p_t_high / self.p_duration))

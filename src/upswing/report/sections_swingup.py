@@ -1,0 +1,80 @@
+"""The swing-up as a report section: the plan's facts, its time histories against the actuator envelope, the
+effort-speed plane, a filmstrip of poses and an animation; or a plain statement of why there is none."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from upswing.design.swingup_stage import SwingUpOutcome
+from upswing.model.rig import Rig
+from upswing.report import figures_rig, figures_time
+from upswing.report.html import Image, Notes, Paragraph, Section, Table, figure_image
+from upswing.report.sections_verification import budgets_blocks
+
+
+def plan_table(rig: Rig, outcome: SwingUpOutcome) -> Table:
+    plan = outcome.plan
+    units = rig.input_units
+    rows = (("method", f"{plan.scheme} collocation, {plan.intervals} intervals, IPOPT", ""),
+            ("objective", "minimum time" if plan.minimum_time else "minimum effort, integral of (u / peak)^2", ""),
+            ("duration", f"{plan.duration:.3f}", "s"),
+            ("largest effort used", ", ".join(f"{n} {v:.3g} {u}" for n, v, u in
+                                              zip(rig.input_names, plan.peak_input, units, strict=True)), ""),
+            ("limit respected", ", ".join(f"{n} {v:.3g} {u}" for n, v, u in
+                                          zip(rig.input_names, plan.limit, units, strict=True)), ""),
+            ("how it was found", plan.strategy, ""),
+            ("solver", f"{plan.solver_status}, {plan.iterations} iterations, {plan.solve_s:.2f} s "
+                       f"({plan.total_s:.2f} s with every attempt and mesh check)", ""),
+            ("largest interval error (re-integrated)", f"{plan.max_interval_error:.2g} (tolerance "
+                                                       f"{plan.mesh_tolerance:.2g})", "rad or m"),
+            ("Coulomb friction smoothed over", f"{plan.coulomb_smoothing:g}", "rad/s or m/s"))
+    return Table(("quantity", "value", "unit"), rows, "The optimized swing-up from hanging to upright at rest.")
+
+
+def swingup_section(rig: Rig, outcome: SwingUpOutcome | None, message: str) -> Section:
+    """The swing-up section; ``message`` says why there is no outcome."""
+    if outcome is None:
+        return Section("Swing-up", (
+            Paragraph(f"{message.rstrip('.')}. Without a swing-up this run cannot say whether {rig.name}'s actuators "
+                      "can bring the links from hanging to upright and hand them to the balance loop, so the verdict "
+                      "cannot clear the rig. The balance loop is verified on its own below: it catches the links "
+                      "only inside the region of attraction shown there, and nobody may bring the links there by "
+                      "hand with the drive enabled."),
+        ), key="swingup")
+    t, X, U = outcome.t, outcome.X, outcome.U
+    blocks: list = [
+        Paragraph(f"An optimized swing-up from hanging to upright at rest in {outcome.plan.duration:.2f} s. It is an "
+                  "open-loop reference: on the rig it must be tracked with feedback and handed to the balance loop. "
+                  + (outcome.unverified[0].upper() + outcome.unverified[1:] + ", so its figures below are what the "
+                     "plan asks of the rig, not a verified manoeuvre." if outcome.unverified else "")),
+        plan_table(rig, outcome),
+        figure_image(figures_time.time_history_figure(rig, t, X, U, title="Planned swing-up"),
+                     "The planned swing-up against the actuator envelope: angles, speeds"
+                     + (", cart position and speed" if rig.cart is not None else "")
+                     + " and each input's effort with its peak (hatched beyond), continuous rating (dashed, against "
+                       "the running RMS) and motor line where the rig file gives one.",
+                     alt="Time histories of the planned swing-up"),
+        figure_image(figures_time.torque_speed_figure(rig, X, U),
+                     "Each input's operating points in the effort-speed plane: quadrants I and III drive the joint, "
+                     "II and IV brake it.", alt="Effort against speed along the planned swing-up"),
+        figure_image(figures_rig.filmstrip_figure(rig, t, X),
+                     "Poses along the planned swing-up, drawn to scale.", alt="Filmstrip of the planned swing-up"),
+        Image(figures_rig.animation_gif(rig, t, X), "image/gif",
+              "The planned swing-up in real time (loops; the last pose holds for a second).",
+              alt="Animation of the planned swing-up"),
+    ]
+    if outcome.tracking is not None:
+        table = outcome.tracking
+        gains = np.abs(np.asarray(table.K))
+        blocks.append(Paragraph(
+            f"Tracking gains: a time-varying LQR table of {table.n_rows} rows at {table.sample_rate:g} Hz along the "
+            f"plan (u = u_ff[k] - K[k] (x - x_ref[k]), angle errors wrapped, saturated at peak; the balance loop "
+            f"takes over after the last row, at {table.end_time:.2f} s). Largest gain entry "
+            f"{gains.max():.3g}; exported as swingup.csv and swingup.json (and a C header when it fits)."))
+    blocks += budgets_blocks(outcome.budgets, "Swing-up budgets (planned)", source="the plan at its nodes and "
+                             "midpoints", single=True)
+    blocks.append(Notes((
+        "The plan's budgets are judged at its nodes and interval midpoints, where the optimizer enforces the "
+        "equations of motion and the limits; between them the plan is an interpolant and can pass a bound by about "
+        "the mesh's accuracy.", *outcome.notes)))
+    return Section("Swing-up", tuple(blocks), key="swingup")

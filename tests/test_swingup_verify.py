@@ -52,8 +52,8 @@ def test_cart_rig_tracked_swingup_is_caught_under_uncertainty(cart):
     rig, plan = cart
     v = verify_swingup(rig, plan=plan, rollouts=ROLLOUTS, seed=1)
     _common_checks(rig, v)
-    # Measured: 100 of 100 rollouts caught and held (seed 0), 64 of 64 here. The test asks for a Wilson lower end
-    # of at least 0.9, i.e. at most one miss in 64: a regression to "often" fails it.
+    # Measured: 200 of 200 rollouts caught and held (`upswing swingup scenarios/cart-double.toml`, seed 0). The
+    # test asks for a Wilson lower end of at least 0.9, i.e. at most one miss in 64: a regression to "often" fails.
     assert v.success_interval[0] >= 0.9
     assert v.nominal.caught and math.isfinite(v.nominal.handover_time)
     assert v.nominal.handover_time <= plan.duration + 1e-9
@@ -63,7 +63,7 @@ def test_acrobot_tracked_swingup_success_rate(acrobot):
     rig, plan = acrobot
     v = verify_swingup(rig, plan=plan, rollouts=ROLLOUTS, seed=1)
     _common_checks(rig, v)
-    # Measured with the demo rig's +-15 % link inertias (uniform): 69 of 100 caught (seed 0); the misses follow
+    # Measured with the demo rig's +-15 % link inertias (uniform): 158 of 200 caught (seed 0); the misses follow
     # link1.inertia (point-biserial r = 0.43): one elbow motor cannot pull the passive link back onto the
     # reference once it drifts. The nominal plant is caught. The test states what the rig shows: the point
     # estimate is at least one half and the Wilson interval excludes 0.95 (the tracked swing-up is NOT reliable

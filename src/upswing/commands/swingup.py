@@ -265,7 +265,8 @@ def sizing_text(rig: Rig, s: SizingResult, curve: TradeoffCurve | None, folder: 
         lines.append(f"smallest peak effort for a swing-up within {s.duration:.3f} s: {peaks} (rig file: {have}); "
                      "add a margin for tracking feedback and model error before choosing a motor")
     else:
-        lines.append(f"NO SWING-UP FOUND within {s.duration:.3f} s: {s.message}")
+        lines.append(f"NO SWING-UP FOUND within {s.duration:.3f} s (up to {s.trials[-1].factor:g} times the rig's "
+                     "peak); try a longer --time" if s.trials else f"NO SWING-UP FOUND within {s.duration:.3f} s")
     lines.append(s.message)
     if curve is not None:
         lines.append("peak effort vs minimum swing-up time:")

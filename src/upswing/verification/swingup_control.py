@@ -5,8 +5,8 @@ combinator, :class:`CatchController`, which per rollout and per sample
 
 1. forms the state estimate x_hat: with ``measurement = "state"`` the exact state (y + upright); with encoders the
    readings for the angles (and cart position) and, for the rates, a filtered backward difference of the readings
-   (angle differences wrapped, first-order low-pass at ``[balance].velocity_cutoff``, default sample_rate / 10,
-   the same filter :func:`upswing.synthesis.estimation.finite_difference_estimator` describes); this estimate is
+   (angle differences wrapped, first-order low-pass at ``rate_cutoff``, default ``[balance].velocity_cutoff`` =
+   sample_rate / 10, as :func:`upswing.synthesis.estimation.finite_difference_estimator` describes); this estimate is
    model-free, so it stays valid far from upright, where the balance design's Kalman filter does not;
 2. updates the mode with the hand-over rule of :class:`upswing.synthesis.swingup.tracking.HandoverRule`: balance
    engages when x_hat' P x_hat <= rho_in and releases only above rho_out > rho_in (hysteresis); a tracking table
@@ -38,6 +38,7 @@ from collections.abc import Callable
 
 import numpy as np
 
+from upswing.errors import RequestError
 from upswing.model.equilibria import equilibrium_state
 from upswing.model.modes import measured_states
 from upswing.model.rig import Rig
@@ -83,10 +84,14 @@ class CatchController:
     rule : HandoverRule
     table_end : float or None
         Time [s] after which balance is engaged for good (a tracking table's ``end_time``), or None.
+    rate_cutoff : float, optional
+        Cut-off of the rate filter on encoders [Hz]; default ``[balance].velocity_cutoff`` (sample_rate / 10).
+        A law that acts slowly on small motions may want it lower (quantization noise), a tracking law needs the
+        low lag of the default (measured on the demo rigs, :mod:`upswing.verification.manoeuvre`).
     """
 
     def __init__(self, rig: Rig, law: Law, balance: LinearFeedback, rule: HandoverRule,
-                 table_end: float | None = None) -> None:
+                 table_end: float | None = None, rate_cutoff: float | None = None) -> None:
         self.law, self.balance, self.rule, self.table_end = law, balance, rule, table_end
         self.sample_rate = balance.sample_rate
         self.measurement = balance.measurement
@@ -95,7 +100,10 @@ class CatchController:
         self.p = len(measured_states(rig)) if self.measurement == "encoders" else self.n
         is_angle = np.array([s in ("theta1", "theta2") for s in measured_states(rig)])
         self._angle_cols = np.flatnonzero(is_angle)
-        fc = velocity_cutoff(rig, self.sample_rate)
+        fc = velocity_cutoff(rig, self.sample_rate) if rate_cutoff is None else float(rate_cutoff)
+        if not (math.isfinite(fc) and 0.0 < fc < self.sample_rate / 2.0):
+            raise RequestError(f"rate filter cut-off must be in (0, {self.sample_rate / 2.0:g}) Hz (below Nyquist); "
+                               f"got {fc!r}")
         self._alpha = math.exp(-2.0 * math.pi * fc / self.sample_rate)  # low-pass pole of the rate filter
         est = balance.estimator
         self._seed_map = None if est is None else np.linalg.pinv(np.asarray(est.Cxi, dtype=float)).T

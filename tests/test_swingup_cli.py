@@ -103,3 +103,14 @@ def test_energy_on_a_fully_actuated_arm_says_why_not(capsys):
 def test_missing_rig_file(tmp_path, capsys):
     code, _, err = _run(capsys, tmp_path / "nope.toml")
     assert code == EXIT_BAD_INPUT and "nope.toml" in err
+
+
+def test_energy_method_reports_the_contract_fields(capsys):
+    # 16 rollouts: the field layout is under test here, the energy law's rates in test_swingup_verify.py.
+    code, out, _ = _run(capsys, ACROBOT, "--method", "energy", "--rollouts", 16, "--json")
+    data = json.loads(out)
+    assert all(key in data for key in CONTRACT)
+    assert data["method"] == "energy" and data["status"].startswith("energy law")
+    assert data["solve_s"] is None and data["iterations"] is None and data["table"] is None
+    # Exit code follows the verdict: 0 only on a pass (the demo acrobot's energy law is not a reliable swing-up).
+    assert code == (0 if data["verdict"] == "pass" else EXIT_VERDICT)

@@ -12,8 +12,9 @@ Stages, in order (:data:`STAGES`), each timed:
     the LQR balance design at the loop rate, both velocity estimators and the margins of every variant
     (:func:`upswing.synthesis.study.study_balance`).
 ``swing-up``
-    :mod:`upswing.design.swingup_stage`: the planned swing-up and what it asks of the rig (unverified on the
-    nonlinear model until this build has a tracking controller; missing without the swing-up synthesis).
+    :mod:`upswing.design.swingup_stage`: the planned swing-up, its tracking table, and the tracked manoeuvre with
+    hand-over verified on the uncertain nonlinear model (Monte Carlo with the run's rollout count and seed); the
+    success rate's 95 % lower bound is judged like the balance loop's, and the tracked budgets against the limits.
 ``verification``
     the balance loop on the nonlinear model (:func:`upswing.verification.verdict.verify_balance`: Monte Carlo,
     region of attraction, drop-outs, budgets), then the offset and tap responses
@@ -59,9 +60,12 @@ from upswing.verification.montecarlo import check_spreads
 from upswing.verification.verdict import Verification, verify_balance
 
 STAGES = ("validate", "modes", "balance", "swing-up", "verification", "budgets and hazards")
-SWINGUP_ADVICE = ("the planned swing-up asks more than the rig file allows there: allow a longer swing-up, or a "
+SWINGUP_ADVICE = ("the swing-up asks more than the rig file allows there: allow a longer swing-up, or a "
                   "motor and gear with more speed or torque (upswing.synthesis.swingup.size_motor finds the smallest "
                   "peak for a given time)")
+# Region-of-attraction starts behind the swing-up's hand-over level (verify_swingup's own default): the level is half
+# the estimated rho, so a coarser estimate than the verification stage's costs little.
+SWINGUP_ROA_SAMPLES = 300
 RUNNING_LOOP = "discrete_kalman"  # the margins of the loop the verification runs: discrete LQR + Kalman filter
 
 
@@ -281,11 +285,14 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
 
     modes = stages.run("modes", lambda: analyse_all(rig))
     study = stages.run("balance", lambda: study_balance(rig))
-    swingup = stages.run("swing-up", lambda: run_swingup_stage(rig, seed=options.seed))
+    swingup = stages.run("swing-up", lambda: run_swingup_stage(
+        rig, seed=options.seed, rollouts=options.rollouts, required_success=options.required_success,
+        roa_samples=min(options.roa_samples, SWINGUP_ROA_SAMPLES)))
     verified = stages.run("verification", lambda: _verify(rig, study, options), needs=("balance",))
     verification, responses = verified if verified is not None else (None, None)
 
     def weigh() -> tuple[tuple[Budget, ...], tuple[Margin, ...], dict[str, str], tuple[HazardNote, ...]]:
+        checked = swingup is not None and swingup.verification is not None
         budgets: list[Budget] = []
         margins: list[Margin] = []
         details: dict[str, str] = {}
@@ -298,6 +305,13 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
             for b in swingup.budgets:
                 if b.ok is False:
                     details[f"swingup.{b.name}"] = SWINGUP_ADVICE
+            check = swingup.verification
+            if check is not None:
+                catch = success_margin("swing-up catch", check.decision.success_lower_bound, check.required_success)
+                margins.append(catch)
+                misses = ", ".join(f"{k}: {n}" for k, n in check.outcomes.items() if k != "caught and held")
+                details[catch.name] = (f"{check.successes} of {check.rollouts} tracked swing-ups were caught and "
+                                       f"held ({check.success_rate:.1%})" + (f"; missed: {misses}" if misses else ""))
         if verification is not None:
             mc = verification.monte_carlo
             budgets += [_prefixed("balance", b) for b in verification.budgets]
@@ -308,7 +322,8 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
             details[hold.name] = (f"{mc.successes} of {mc.rollouts} Monte Carlo rollouts held "
                                   f"({mc.success_rate:.1%})" + (f"; did not hold: {fails}" if fails else ""))
         hazards = _merge_hazards(verification.hazards if verification is not None else (),
-                                 swingup_hazards(rig, swingup.budgets) if swingup is not None else (),
+                                 swingup.verification.hazards if checked else (),
+                                 swingup_hazards(rig, swingup.budgets, tracked=checked) if swingup is not None else (),
                                  model_hazards(rig, modes) if modes is not None else ())
         return tuple(budgets), tuple(margins), details, hazards
 

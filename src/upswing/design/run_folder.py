@@ -18,6 +18,8 @@ Contents (:data:`DESCRIPTIONS`; a file appears when the stage behind it finished
 ``roa_slices.csv``         the region-of-attraction slice maps, one row per start
 ``budgets.csv``            every budget of the run
 ``trajectory.csv``         the planned swing-up at the loop rate (reference states, feed-forward inputs)
+``swingup_montecarlo.csv`` one row per tracked swing-up rollout: parameters, outcome, hand-over time, peaks
+                           (when the swing-up was verified)
 ``swingup.csv`` ...        the swing-up table for firmware (CSV, JSON, C header when it fits), in builds with
                            the tracking synthesis (:mod:`upswing.export.swingup_files`)
 =========================  ===============================================================================
@@ -59,6 +61,7 @@ DESCRIPTIONS = {
     vf.ROA_SLICES_CSV: "region-of-attraction slice maps, one row per start",
     vf.BUDGETS_CSV: "every budget of the run: value, limit, unit, met",
     vf.TRAJECTORY_CSV: "the planned swing-up at the loop rate: reference states and feed-forward inputs",
+    vf.SWINGUP_MONTE_CARLO_CSV: "one row per tracked swing-up rollout: parameters, outcome, hand-over time, peaks",
     "swingup.csv": "swing-up table for firmware: reference, feed-forward and tracking gains per loop period",
     "swingup.json": "the swing-up table as JSON",
     "swingup_table.h": "the swing-up table as a C header (when it fits the memory budget)",
@@ -162,6 +165,8 @@ def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
             if s.unverified:
                 notes.append(f"UNCHECKED: {s.unverified}")
             put(folder, vf.TRAJECTORY_CSV, vf.trajectory_csv(rig, s.t, s.X, s.U, notes))
+            if s.verification is not None:
+                put(folder, vf.SWINGUP_MONTE_CARLO_CSV, vf.swingup_montecarlo_csv(rig, s.verification))
             if s.tracking is not None:
                 names, note = _swingup_table_files(folder, rig, s.tracking)
                 written += names

@@ -17,8 +17,13 @@ Fields (names are a contract: more may be added, none renamed):
 ``margins``
     Every judged margin: ``name``, ``value``, ``required``, ``unit``, ``ok``, ``ratio``.
 ``success_rates``
-    Per verified manoeuvre (``balance``; ``swingup`` once it exists, null until then): ``rate``, ``interval``
-    (95 % Wilson), ``lower_bound``, ``required``, ``rollouts``, ``successes``, ``outcomes``.
+    Per verified manoeuvre (``balance``; ``swingup``, null when the swing-up was not verified): ``rate``,
+    ``interval`` (95 % Wilson), ``lower_bound``, ``required``, ``rollouts``, ``successes``, ``outcomes``.
+``swingup``
+    Null without a planned swing-up; else ``verified`` (bool), ``duration_s`` (the plan), and when verified
+    ``handover_time`` (``min``, ``median``, ``p95``, ``max`` over the caught rollouts [s], null when none was
+    caught), ``nominal_handover_time`` [s] (null if the nominal run never handed over), ``nominal_caught``,
+    ``handover_level`` (rho_in, rho_out and their source), ``verdict`` and ``reasons`` of the manoeuvre check.
 ``stages``, ``timing``
     Each stage's ``name``, ``status``, ``seconds`` and ``message``; ``timing`` has ``stages`` (name -> s),
     ``report_s``, ``files_s`` and ``total_s``.
@@ -64,6 +69,32 @@ def success_json(run: DesignRun) -> dict[str, Any]:
                           "lower_bound": mc.success_interval[0], "required": run.required_success,
                           "rollouts": mc.rollouts, "successes": mc.successes, "outcomes": dict(mc.outcomes),
                           "method": "Wilson score interval, 95 %"}
+    check = None if run.swingup is None else run.swingup.verification
+    if check is not None:
+        out["swingup"] = {"rate": check.success_rate, "interval": list(check.success_interval),
+                          "lower_bound": check.success_interval[0], "required": check.required_success,
+                          "rollouts": check.rollouts, "successes": check.successes, "outcomes": dict(check.outcomes),
+                          "method": "Wilson score interval, 95 %"}
+    return out
+
+
+def _finite(value: float) -> float | None:
+    return float(value) if math.isfinite(value) else None
+
+
+def swingup_json(run: DesignRun) -> dict[str, Any] | None:
+    """The ``swingup`` field (module docstring)."""
+    s = run.swingup
+    if s is None:
+        return None
+    out: dict[str, Any] = {"verified": not s.unverified, "duration_s": float(s.plan.duration)}
+    check = s.verification
+    if check is not None:
+        summary = {k: _finite(v) for k, v in check.handover_summary.items()}
+        out.update(handover_time=None if summary["median"] is None else summary,
+                   nominal_handover_time=_finite(check.nominal.handover_time), nominal_caught=check.nominal.caught,
+                   handover_level={"rho_in": check.rho_in, "rho_out": check.rho_out, "source": check.rho_source},
+                   verdict=check.verdict, reasons=list(check.reasons), horizon_s=check.horizon_s)
     return out
 
 
@@ -86,6 +117,7 @@ def summary_fields(run: DesignRun, *, run_folder: str | None, files: list[str], 
         "unchecked": [{"what": what, "why": why} for what, why in run.unchecked],
         "margins": [margin_json(m) for m in run.margins],
         "success_rates": success_json(run),
+        "swingup": swingup_json(run),
         "stages": [{"name": s.name, "status": s.status, "seconds": s.seconds, "message": s.message}
                    for s in run.stages],
         "timing": {"stages": {s.name: s.seconds for s in run.stages}, "report_s": report_s, "files_s": files_s,
@@ -100,6 +132,6 @@ def summary_fields(run: DesignRun, *, run_folder: str | None, files: list[str], 
         "hazards": [{"topic": h.topic, "text": h.text, "standards": list(h.standards)} for h in run.hazards],
         "warnings": list(run.rig.warnings),
         "units_extra": {"timing": "s", "success_rates": "fraction", "budgets": "each line's unit",
-                        "margins": "each line's unit"},
+                        "margins": "each line's unit", "swingup": "s (times), - (hand-over levels)"},
         **safety_block(),
     }

@@ -10,6 +10,10 @@ Every file starts with the export header as ``# `` lines (rig hash, tool version
     ``peak_speed_<coordinate>``, ``peak_rail`` (cart rigs), ``peak_base_force``, ``peak_base_moment``,
     ``peak_tip_speed``, ``peak_kinetic_energy``, then every physical parameter the rollout was drawn with, under its
     rig-file name (``link1.mass``, ...).
+``swingup_montecarlo.csv``
+    one row per tracked swing-up rollout (:func:`swingup_montecarlo_csv`): ``rollout``, ``outcome``, ``caught``
+    (1/0), ``handover_time`` (empty if never), ``end_time``, per input ``peak_``/``rms_``/``saturated_<input>``, per
+    coordinate ``peak_speed_<coordinate>``, ``peak_rail`` (cart rigs), ``peak_tip_speed``, then the parameters.
 ``roa_slices.csv``
     one row per start of the region-of-attraction slice maps: ``slice`` (``<x_state>-<y_state>``), ``x_state``,
     ``y_state``, ``x_value``, ``y_value``, ``held`` (1/0); the other states at upright, nominal parameters.
@@ -26,6 +30,7 @@ from __future__ import annotations
 
 import csv
 import io
+import math
 from collections.abc import Sequence
 from typing import Any
 
@@ -39,6 +44,7 @@ from upswing.verification.roa import RegionOfAttraction
 from upswing.verification.simulate import STATUS
 from upswing.verification.verdict import VERDICT_RULE, Verification
 
+SWINGUP_MONTE_CARLO_CSV = "swingup_montecarlo.csv"
 MONTE_CARLO_CSV = "montecarlo.csv"
 ROA_SLICES_CSV = "roa_slices.csv"
 BUDGETS_CSV = "budgets.csv"
@@ -157,6 +163,45 @@ def montecarlo_csv(rig: Rig, mc: MonteCarloResult) -> str:
             row.append(_number(r.peak_rail[i]))
         row += [_number(r.peak_force[i]), _number(r.peak_monitors[i, 2]), _number(r.peak_monitors[i, 3]),
                 _number(r.peak_monitors[i, 4]), *map(_number, mc.parameters[i])]
+        w.writerow(row)
+    return buf.getvalue()
+
+
+def swingup_montecarlo_csv(rig: Rig, check: Any) -> str:
+    """``swingup_montecarlo.csv``: one row per tracked swing-up rollout of
+    :func:`upswing.verification.manoeuvre.verify_swingup` (``check``): outcome, caught (1/0), the hand-over time
+    (empty when the balance loop never engaged), end time, peaks and RMS per input, peak speeds, and the drawn
+    parameters."""
+    r = check.results
+    coords = _coordinates(rig)
+    units = [("handover_time", "s"), ("end_time", "s")]
+    for name, unit in zip(rig.input_names, rig.input_units, strict=True):
+        units += [(f"peak_{name}", unit), (f"rms_{name}", unit), (f"saturated_{name}", "s")]
+    units += [(f"peak_speed_{c}", "m/s" if c == "x" else "rad/s") for c in coords]
+    if rig.cart is not None:
+        units.append(("peak_rail", "m"))
+    units += [("peak_tip_speed", "m/s"), *[(p, _parameter_unit(p)) for p in PARAMETER_NAMES]]
+    low, high = check.success_interval
+    notes = [f"swing-up Monte Carlo: {check.law}; {check.rollouts} rollouts of {check.horizon_s:.3g} s, seed "
+             f"{check.seed}, {check.measurement}; hand-over at rho_in = {check.rho_in:.4g} ({check.rho_source})",
+             f"{check.successes} caught and held ({check.success_rate:.4f}), 95 % Wilson interval {low:.4f} .. "
+             f"{high:.4f}",
+             "caught = 1 when the balance loop engaged and held the links in the settling box for the final second"]
+    buf = io.StringIO()
+    buf.write(hash_comment(export_header(rig, "Monte Carlo rollouts of the tracked swing-up with hand-over",
+                                         units=units, notes=notes)))
+    w = _writer(buf)
+    w.writerow(["rollout", "outcome", "caught", *[u[0] for u in units]])
+    for i in range(check.rollouts):
+        handover = float(check.handover_times[i])
+        row = [str(int(r.ids[i])), check.outcome_of(i), "1" if check.caught[i] else "0",
+               _number(handover) if math.isfinite(handover) else "", _number(r.end_time[i])]
+        for j in range(rig.n_inputs):
+            row += [_number(r.peak_input[i, j]), _number(r.rms_input[i, j]), _number(r.saturated_time[i, j])]
+        row += [_number(v) for v in r.peak_speed[i]]
+        if rig.cart is not None:
+            row.append(_number(r.peak_rail[i]))
+        row += [_number(r.peak_monitors[i, 3]), *map(_number, check.parameters[i])]
         w.writerow(row)
     return buf.getvalue()
 

@@ -10,12 +10,15 @@ from __future__ import annotations
 
 from datetime import datetime
 
+import numpy as np
+
 from upswing.design.pipeline import DesignRun
 from upswing.report.assemble import facts, modes_section, rig_section
 from upswing.report.html import Document, Paragraph, Section, Table, render
 from upswing.report.sections_balance import balance_section
 from upswing.report.sections_swingup import swingup_section
 from upswing.report.sections_verification import margins_section, verification_section
+from upswing.synthesis.balance import design_balance
 
 KIND = "upswing design run"
 STATUS_WORDS = {"done": "done", "failed": "FAILED", "skipped": "skipped", "missing": "missing"}
@@ -68,8 +71,15 @@ def design_document(run: DesignRun, *, made: datetime | None = None, report_s: f
         sections.append(Section("Equilibria and modes", (Paragraph(_message(run, "modes")),), key="modes"))
     sections.append(balance_section(rig, run.balance, run.responses, failure=_message(run, "balance")))
     sections.append(swingup_section(rig, run.swingup, _message(run, "swing-up")))
+    check = None if run.swingup is None else run.swingup.verification
+    boundary = None
+    if check is not None and run.verification is not None:
+        # The hand-over rule's cost-to-go: the delay-free discrete design (upswing.synthesis.swingup.tracking).
+        boundary = (np.asarray(design_balance(rig, delay_samples=0).P_discrete)[:rig.n_states, :rig.n_states],
+                    check.rho_in)
     sections.append(verification_section(rig, run.verification, run.required_success,
-                                         handover_label=handover, failure=_message(run, "verification")))
+                                         handover_label=handover, failure=_message(run, "verification"),
+                                         handover=boundary))
     sections.append(margins_section(run.margins, run.budgets))
     return Document(title=rig.name, kind=KIND, facts=facts(rig, made), verdict=run.verdict,
                     sections=tuple(sections), hazards=run.hazards)

@@ -31,6 +31,50 @@ def plan_table(rig: Rig, outcome: SwingUpOutcome) -> Table:
     return Table(("quantity", "value", "unit"), rows, "The optimized swing-up from hanging to upright at rest.")
 
 
+def verified_blocks(rig: Rig, check) -> list:
+    """The tracked manoeuvre on the uncertain model (a :class:`~upswing.verification.manoeuvre.SwingUpVerification`):
+    success rate with its interval, outcomes, hand-over times, the nominal run against the envelope, budgets."""
+    low, high = check.success_interval
+    spreads = ", ".join(f"{name} ±{100 * s:.0f} %" for name, s in rig.uncertainty.spreads if s > 0) or "none"
+    hs = check.handover_summary
+    caught_text = (f"The balance loop took over after {hs['median']:.2f} s (median; {hs['min']:.2f} .. "
+                   f"{hs['max']:.2f} s, 95th percentile {hs['p95']:.2f} s) in the caught runs."
+                   if np.isfinite(hs["median"]) else "No run was caught.")
+    nominal = (f"caught, hand-over at {check.nominal.handover_time:.2f} s" if check.nominal.caught
+               else f"not caught ({check.nominal.status})")
+    blocks: list = [
+        Paragraph(f"Verified on the nonlinear model: {check.law}, handed to the balance loop at x'Px <= "
+                  f"{check.rho_in:.4g} ({check.rho_source}; released above {check.rho_out:.4g}), with "
+                  f"{check.measurement}, sampling, saturation and the loop's delay. {check.rollouts} Monte Carlo runs "
+                  f"of {check.horizon_s:.3g} s ({rig.uncertainty.distribution} spreads: {spreads}; seed "
+                  f"{check.seed}): {check.successes} caught and held, {check.success_rate:.1%}, 95 % Wilson interval "
+                  f"{low:.2%} .. {high:.2%}; the verdict asks the lower end to reach {check.required_success:.1%}. "
+                  f"{caught_text} Nominal run: {nominal}. Manoeuvre check: {check.verdict.upper()}"
+                  + (" (" + "; ".join(check.reasons) + ")." if check.reasons else ".")),
+        Table(("outcome", "runs", "share"),
+              tuple((k, str(n), f"{100 * n / check.rollouts:.1f} %") for k, n in check.outcomes.items()),
+              "How the tracked swing-ups ended ('caught and held': the balance loop engaged and held the links in "
+              "the settling box for the final second)."),
+    ]
+    caught = check.handover_times[check.caught] if check.caught is not None else check.handover_times
+    if np.isfinite(caught).any():
+        blocks.append(figure_image(
+            figures_time.histogram_figure(caught, quantity="hand-over time", unit="s"),
+            "When the balance loop took over, in each caught Monte Carlo run.",
+            alt="Histogram of the swing-up hand-over times"))
+    n = check.nominal
+    blocks.append(figure_image(
+        figures_time.time_history_figure(rig, n.times[:-1], n.states[:-1], n.inputs,
+                                         title="Tracked swing-up, nominal rig"),
+        "The nominal tracked run (nominal parameters, encoders with quantization and noise, delay, saturation; the "
+        "balance loop after the hand-over) against the actuator envelope: peak (hatched beyond), continuous rating "
+        "(dashed, against the running RMS) and motor line where given.",
+        alt="Time histories of the tracked swing-up on the nominal rig"))
+    blocks += budgets_blocks(tuple(check.budgets), "Swing-up budgets (tracked, caught runs)",
+                             source="the worst caught run")
+    return blocks
+
+
 def swingup_section(rig: Rig, outcome: SwingUpOutcome | None, message: str) -> Section:
     """The swing-up section; ``message`` says why there is no outcome."""
     if outcome is None:
@@ -46,7 +90,8 @@ def swingup_section(rig: Rig, outcome: SwingUpOutcome | None, message: str) -> S
         Paragraph(f"An optimized swing-up from hanging to upright at rest in {outcome.plan.duration:.2f} s. It is an "
                   "open-loop reference: on the rig it must be tracked with feedback and handed to the balance loop. "
                   + (outcome.unverified[0].upper() + outcome.unverified[1:] + ", so its figures below are what the "
-                     "plan asks of the rig, not a verified manoeuvre." if outcome.unverified else "")),
+                     "plan asks of the rig, not a verified manoeuvre." if outcome.unverified else
+                     "The tracked manoeuvre was verified (below); the plan's own figures follow it.")),
         plan_table(rig, outcome),
         figure_image(figures_time.time_history_figure(rig, t, X, U, title="Planned swing-up"),
                      "The planned swing-up against the actuator envelope: angles, speeds"
@@ -71,8 +116,10 @@ def swingup_section(rig: Rig, outcome: SwingUpOutcome | None, message: str) -> S
             f"plan (u = u_ff[k] - K[k] (x - x_ref[k]), angle errors wrapped, saturated at peak; the balance loop "
             f"takes over after the last row, at {table.end_time:.2f} s). Largest gain entry "
             f"{gains.max():.3g}; exported as swingup.csv and swingup.json (and a C header when it fits)."))
-    blocks += budgets_blocks(outcome.budgets, "Swing-up budgets (planned)", source="the plan at its nodes and "
-                             "midpoints", single=True)
+    if outcome.verification is not None:
+        blocks += verified_blocks(rig, outcome.verification)
+    blocks += budgets_blocks(outcome.planned_budgets or outcome.budgets, "Swing-up budgets (planned)",
+                             source="the plan at its nodes and midpoints", single=True)
     blocks.append(Notes((
         "The plan's budgets are judged at its nodes and interval midpoints, where the optimizer enforces the "
         "equations of motion and the limits; between them the plan is an interpolant and can pass a bound by about "

@@ -72,7 +72,17 @@ def monte_carlo_blocks(rig: Rig, v: Verification, required: float) -> list[Block
     return blocks
 
 
-def region_blocks(rig: Rig, v: Verification, handover_label: str) -> list[Block]:
+def level_curve(rig: Rig, P: np.ndarray, level: float, piece: Slice, label: str) -> Curve:
+    """The level set x'Px = level (P over the state, n x n) cut by the slice (other states at upright), in the
+    map's units."""
+    i, j = rig.state_names.index(piece.x_state), rig.state_names.index(piece.y_state)
+    curve = ellipse_curve(label, np.asarray(P)[np.ix_([i, j], [i, j])], level)
+    sx, sy = _axis(piece.x_state, rig)[2], _axis(piece.y_state, rig)[2]
+    return Curve(curve.label, curve.x * sx, curve.y * sy)
+
+
+def region_blocks(rig: Rig, v: Verification, handover_label: str,
+                  handover: tuple[np.ndarray, float] | None = None) -> list[Block]:
     roa = v.region
     rows = tuple((s, f"{roa.level_set_extents[s]:.3g}", f"{lo:+.3g}", f"{hi:+.3g}", unit)
                  for (s, (lo, hi)), unit in zip(roa.axis_catch.items(), rig.state_units, strict=True))
@@ -88,13 +98,18 @@ def region_blocks(rig: Rig, v: Verification, handover_label: str) -> list[Block]
         xq, xu, xs = _axis(piece.x_state, rig)
         yq, yu, ys = _axis(piece.y_state, rig)
         curve = handover_curve(rig, roa, piece, "verified level set")
+        curves = () if curve is None else (curve,)
+        if handover is not None:
+            curves += (level_curve(rig, handover[0], handover[1], piece, "swing-up hand-over"),)
         blocks.append(figure_image(
             figures_time.slice_map_figure(np.asarray(piece.x_values) * xs, np.asarray(piece.y_values) * ys,
                                           np.asarray(piece.held, dtype=bool), x_quantity=xq, x_unit=xu,
-                                          y_quantity=yq, y_unit=yu, curves=() if curve is None else (curve,),
-                                          target=(0.0, 0.0)),
+                                          y_quantity=yq, y_unit=yu, curves=curves, target=(0.0, 0.0)),
             f"Starts in the {piece.x_state} x {piece.y_state} plane (other states at upright) that the balance loop "
-            f"catches, nominal parameters; the dashed curve is {handover_label}.",
+            f"catches, nominal parameters; the first curve is {handover_label}"
+            + (f"; the second is the swing-up's hand-over boundary x'Px = rho_in = {handover[1]:.4g} (the balance "
+               "cost-to-go of the delay-free design), inside which the tracked swing-up hands over"
+               if handover is not None else "") + ".",
             alt=f"Region-of-attraction slice {piece.x_state} by {piece.y_state}"))
     return blocks
 
@@ -121,7 +136,7 @@ def budgets_blocks(budgets: Sequence[Budget], title: str, *, source: str = "the 
 
 
 def verification_section(rig: Rig, v: Verification | None, required: float, *, handover_label: str,
-                         failure: str = "") -> Section:
+                         failure: str = "", handover: tuple[np.ndarray, float] | None = None) -> Section:
     """Monte Carlo, region of attraction, balance budgets, drop-outs and the integration check."""
     if v is None:
         return Section("Verification on the nonlinear model", (Paragraph(
@@ -130,7 +145,7 @@ def verification_section(rig: Rig, v: Verification | None, required: float, *, h
     d, i = v.dropout, v.integration
     blocks = [Paragraph(f"Controller: {v.controller}; {v.measurement} with {v.estimator}.")]
     blocks += monte_carlo_blocks(rig, v, required)
-    blocks += region_blocks(rig, v, handover_label)
+    blocks += region_blocks(rig, v, handover_label, handover)
     blocks += budgets_blocks(tuple(v.budgets), "Balance budgets")
     blocks.append(Table(("reading frozen for [ms]", "held"),
                         tuple((f"{ms:g}", f"{100 * f:.0f} %") for ms, f in zip(d.durations_ms, d.held_fraction,

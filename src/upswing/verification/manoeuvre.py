@@ -148,6 +148,8 @@ class SwingUpVerification:
     simulate_s, total_s : float
         Wall time of the batch simulation and of the whole call [s].
     cautions : tuple of str
+    caught : ndarray of bool (rollouts,)
+        Per rollout, caught and held (the success definition of the module docstring).
     """
 
     method: str
@@ -179,6 +181,15 @@ class SwingUpVerification:
     simulate_s: float
     total_s: float
     cautions: tuple[str, ...] = SWINGUP_CAUTIONS
+    caught: np.ndarray | None = None
+
+    def outcome_of(self, i: int) -> str:
+        """How rollout ``i`` ended, in the words of ``outcomes``."""
+        if self.caught is not None and self.caught[i]:
+            return "caught and held"
+        if self.results.held[i]:
+            return "held but not by the balance controller"
+        return STATUS[int(self.results.status[i])]
 
 
 def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, seed: int = 0,
@@ -333,7 +344,7 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
         outcomes=outcomes, handover_times=handover_times, handover_summary=summary, budgets=budgets,
         hazards=hazards, verdict=decision.verdict, reasons=decision.reasons, decision=decision,
         required_success=required, results=results, parameters=P, simulate_s=simulate_s,
-        total_s=time.perf_counter() - start_clock)
+        total_s=time.perf_counter() - start_clock, caught=caught)
 
 
 def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float,

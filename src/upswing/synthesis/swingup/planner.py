@@ -38,6 +38,7 @@ from upswing.synthesis.swingup.plan import Attempt, SwingUpPlan
 from upswing.synthesis.swingup.problem import Problem
 
 STRATEGIES = ("warm", "cold", "restarts", "rollout", "continuation")
+PLAN_HEADROOM = 0.85  # share of peak and max_speed a plan for tracking may use (plan_swingup, headroom)
 CONTINUATION_FACTORS = (1.5, 2.25, 3.4, 5.0)
 CONTINUATION_MAX_SOLVES = 14
 MIN_CONTINUATION_STEP = 0.01  # smallest step in log limit worth a solve
@@ -68,6 +69,7 @@ def plan_swingup(
     max_wall_time: float = 10.0,
     time_effort_weight: float = 1e-2,
     ipopt_options: dict | None = None,
+    headroom: float = 1.0,
 ) -> SwingUpPlan:
     """Optimize a swing-up from ``start`` to ``upright`` at rest by direct collocation with IPOPT.
 
@@ -120,6 +122,12 @@ def plan_swingup(
         Effort weight in minimum time [-].
     ipopt_options : dict, optional
         Extra IPOPT options.
+    headroom : float
+        Fraction in (0, 1] of the input limit (``peak`` or the rig's, and the motor line with it) and of every
+        ``max_speed`` the plan may use. Below 1 it leaves the tracking feedback effort and speed of its own: a
+        tracked run on an uncertain rig departs from the plan, and a plan that rides the limits leaves the feedback
+        nothing to correct with (common practice). :data:`PLAN_HEADROOM` is the value the design run and the
+        swing-up command use; 1 (the default here) plans to the limits, as motor sizing needs.
 
     Returns
     -------
@@ -138,7 +146,7 @@ def plan_swingup(
                               travel_margin=travel_margin, coulomb_smoothing=coulomb_smoothing,
                               mesh_tolerance=mesh_tolerance, max_iterations=max_iterations,
                               max_wall_time=max_wall_time, time_effort_weight=time_effort_weight,
-                              ipopt_options=ipopt_options)
+                              ipopt_options=ipopt_options, headroom=headroom)
     unknown = [s for s in strategies if s not in STRATEGIES]
     if unknown or not strategies:
         raise RequestError(f"strategies must be a non-empty subset of {', '.join(STRATEGIES)}; got {list(strategies)}")

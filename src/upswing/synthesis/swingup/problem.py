@@ -107,11 +107,13 @@ class Problem:
     max_wall_time: float
     time_effort_weight: float
     ipopt_options: dict | None
+    speed_headroom: float = 1.0
 
     @classmethod
     def create(cls, rig: Rig, *, scheme: str, intervals: int, start: str | np.ndarray, peak, duration: float | None,
                travel_margin: float, coulomb_smoothing: float, mesh_tolerance: float | None, max_iterations: int,
-               max_wall_time: float, time_effort_weight: float, ipopt_options: dict | None) -> Problem:
+               max_wall_time: float, time_effort_weight: float, ipopt_options: dict | None,
+               headroom: float = 1.0) -> Problem:
         if scheme not in SCHEMES:
             raise RequestError(f"scheme must be one of {', '.join(SCHEMES)}; got {scheme!r}")
         if not isinstance(intervals, int | np.integer) or intervals < 4:
@@ -126,8 +128,10 @@ class Problem:
         if coulomb_smoothing <= 0:
             raise RequestError(f"coulomb_smoothing must be > 0 rad/s (the optimizer needs a smooth friction law); "
                                f"got {coulomb_smoothing}")
+        if not (isinstance(headroom, int | float | np.floating) and 0.0 < headroom <= 1.0):
+            raise RequestError(f"headroom must be a fraction in (0, 1] of peak and max_speed; got {headroom!r}")
         model, dynamics = _compact(rig, float(coulomb_smoothing))
-        limit = _limit(rig, peak)
+        limit = float(headroom) * _limit(rig, peak)
         stall = np.array([0.0 if a.stall is None else a.stall * limit[i] / a.peak
                           for i, a in enumerate(rig.actuators)])
         if duration is None:
@@ -158,7 +162,7 @@ class Problem:
                    stall=stall, duration=float(duration), speed_index=speed_index, travel=travel,
                    mesh_tolerance=float(mesh_tolerance), max_iterations=int(max_iterations),
                    max_wall_time=float(max_wall_time), time_effort_weight=float(time_effort_weight),
-                   ipopt_options=ipopt_options)
+                   ipopt_options=ipopt_options, speed_headroom=float(headroom))
 
     def layout(self, minimum_time: bool) -> Layout:
         rig = self.rig
@@ -171,7 +175,7 @@ class Problem:
             state_scale[0] = rig.cart.travel
         return Layout(
             n_states=rig.n_states, n_inputs=rig.n_inputs, scheme=self.scheme, minimum_time=minimum_time,
-            speed_index=self.speed_index, max_speed=tuple(a.max_speed for a in rig.actuators),
+            speed_index=self.speed_index, max_speed=tuple(self.speed_headroom * a.max_speed for a in rig.actuators),
             motor_line=tuple(a.stall is not None for a in rig.actuators),
             no_load_speed=tuple(a.no_load_speed or 1.0 for a in rig.actuators), cart_travel=self.travel,
             state_scale=tuple(state_scale), input_scale=tuple(rig.peak_inputs),

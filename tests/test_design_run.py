@@ -6,6 +6,7 @@ from __future__ import annotations
 import base64
 import csv
 import hashlib
+import html
 import io
 import json
 import re
@@ -83,6 +84,14 @@ def test_summary_agrees_with_the_report(runs, name):
     assert small is not None and small["name"] in shown["html"]
     assert summary["run_folder"] == str(folder.path.absolute())
     assert summary["tool_version"] and summary["state"] == list(run.rig.state_names)
+    # The swing-up section shows the same catch rate, interval and median hand-over time as summary.json.
+    page = html.unescape((folder.path / "report.html").read_text(encoding="utf-8"))
+    swing = summary["success_rates"]["swingup"]
+    low, high = swing["interval"]
+    assert (f"{swing['successes']} caught and held, {swing['rate']:.1%}, 95 % Wilson interval {low:.2%} .. "
+            f"{high:.2%}") in page
+    if swing["successes"]:
+        assert f"after {summary['swingup']['handover_time']['median']:.2f} s (median;" in page
 
 
 @pytest.mark.parametrize("name", DEMO_RIGS)
@@ -114,6 +123,25 @@ def test_summary_numbers_are_consistent(runs, name):
     timing = summary["timing"]
     assert all(s["seconds"] >= 0 for s in summary["stages"])
     assert timing["total_s"] >= sum(timing["stages"].values())
+    # The swing-up: verified with the run's rollout count; its catch rate and 95 % Wilson interval recomputed from
+    # the counts (Wilson, 1927); 1e-12: rounding only. The catch-rate margin is the interval's lower end.
+    swing = summary["success_rates"]["swingup"]
+    assert swing is not None and summary["swingup"]["verified"] is True and summary["unchecked"] == []
+    assert swing["rollouts"] == TEST_OPTIONS.rollouts and sum(swing["outcomes"].values()) == swing["rollouts"]
+    assert swing["interval"] == pytest.approx(list(wilson(swing["successes"], swing["rollouts"])), abs=1e-12)
+    catch = next(m for m in summary["margins"] if m["name"].startswith("swing-up catch"))
+    assert catch["value"] == pytest.approx(100 * swing["lower_bound"], abs=1e-9)
+    assert catch["ok"] == (swing["lower_bound"] >= swing["required"])
+    # Hand-over times: ordered statistics of the caught runs, inside the simulated horizon.
+    handover = summary["swingup"]["handover_time"]
+    if swing["successes"]:
+        assert 0 < handover["min"] <= handover["median"] <= handover["p95"] <= handover["max"]
+        assert handover["max"] <= summary["swingup"]["horizon_s"]
+    # The swing-up budgets are the tracked ones (verify_swingup), judged against the rig's limits.
+    tracked = {b.name: b for b in run.swingup.verification.budgets}
+    for b in summary["budgets"]:
+        if b["stage"] == "swingup" and not b["name"].endswith(".saturation_time"):
+            assert b["value"] == tracked[b["name"][len("swingup."):]].value
 
 
 @pytest.mark.parametrize("name", DEMO_RIGS)
@@ -131,6 +159,21 @@ def test_exported_tables_agree_with_the_run(runs, name):
     nominal = dict(zip(PARAMETER_NAMES, rig.parameter_vector(), strict=True))
     for pname, p0 in nominal.items():
         values = np.array([float(r[pname]) for r in rows])
+        s = width * spreads.get(pname, 0.0)
+        assert np.all(np.abs(values - p0) <= s * abs(p0) * (1 + 1e-12) + 1e-15), pname
+    # The swing-up Monte Carlo table: one row per rollout, its catches and hand-over times those of the summary;
+    # every drawn parameter within the declared spread (same rule as above).
+    swing_rows = _rows(folder.path / "swingup_montecarlo.csv")
+    swing = folder.summary["success_rates"]["swingup"]
+    assert len(swing_rows) == swing["rollouts"]
+    assert sum(r["caught"] == "1" for r in swing_rows) == swing["successes"]
+    assert sum(r["outcome"] == "caught and held" for r in swing_rows) == swing["outcomes"]["caught and held"]
+    caught_times = np.array([float(r["handover_time"]) for r in swing_rows if r["caught"] == "1"])
+    if caught_times.size:
+        assert float(np.median(caught_times)) == pytest.approx(folder.summary["swingup"]["handover_time"]["median"],
+                                                               rel=1e-12)  # the CSV's decimal rounding only
+    for pname, p0 in nominal.items():
+        values = np.array([float(r[pname]) for r in swing_rows])
         s = width * spreads.get(pname, 0.0)
         assert np.all(np.abs(values - p0) <= s * abs(p0) * (1 + 1e-12) + 1e-15), pname
     slices = _rows(folder.path / "roa_slices.csv")

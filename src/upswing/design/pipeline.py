@@ -311,7 +311,10 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
                 margins.append(catch)
                 misses = ", ".join(f"{k}: {n}" for k, n in check.outcomes.items() if k != "caught and held")
                 details[catch.name] = (f"{check.successes} of {check.rollouts} tracked swing-ups were caught and "
-                                       f"held ({check.success_rate:.1%})" + (f"; missed: {misses}" if misses else ""))
+                                       f"held ({check.success_rate:.1%})" + (f"; missed: {misses}" if misses else "")
+                                       + "; swingup_montecarlo.csv lists each run's parameters and outcome: the "
+                                       "parameters the misses follow are the ones to measure better (narrowing "
+                                       "[uncertainty]), or the swing-up needs more authority (motor, gear, time)")
         if verification is not None:
             mc = verification.monte_carlo
             budgets += [_prefixed("balance", b) for b in verification.budgets]

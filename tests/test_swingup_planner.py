@@ -243,3 +243,25 @@ def test_no_built_in_pumping_law_on_a_cart():
     law = energy_pumping_law(model_for(rig), rig.parameter_vector(), equilibrium_state(rig, "hanging"),
                              equilibrium_state(rig, "upright"), rig.peak_inputs, (3,))
     assert law is None
+
+
+def test_headroom_keeps_the_plan_within_its_share_of_peak_and_max_speed(acrobot):
+    # A plan with headroom h must keep |u| <= h peak and |w| <= h max_speed for every actuated joint (the option's
+    # contract; leaving feedback authority is common practice), and still meet the equations of motion: the same
+    # DOP853 re-integration check as the full-limit plan. The tightest limits are checked against the rig file's
+    # own numbers, not the plan's stored limit, with the solver's bound slack (BOUND_SLACK, above).
+    rig, full = acrobot
+    headroom = 0.85
+    plan = plan_swingup(rig, headroom=headroom)
+    assert plan.success, plan.message
+    np.testing.assert_allclose(plan.limit, headroom * rig.peak_inputs, rtol=1e-12)
+    n_q = rig.n_states // 2
+    a = rig.actuator("elbow")
+    u = np.concatenate([plan.u[:, 0], plan.u_mid[:, 0]])
+    assert np.max(np.abs(u)) <= headroom * a.peak * (1 + BOUND_SLACK)
+    assert np.max(np.abs(plan.x[:, n_q + 1])) <= headroom * a.max_speed * (1 + BOUND_SLACK)
+    # The full-limit plan of the same rig uses speed beyond that share (so the bound is active, not vacuous).
+    assert np.max(np.abs(full.x[:, n_q + 1])) > headroom * a.max_speed
+    _check_reintegration(rig, plan)
+    with pytest.raises(RequestError, match="headroom"):
+        plan_swingup(rig, headroom=1.5)

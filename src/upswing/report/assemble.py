@@ -10,7 +10,7 @@ import math
 from datetime import datetime
 
 from upswing import __version__
-from upswing.model.derived import derived_quantities, keep_out_origin, keep_out_radius
+from upswing.model.derived import derived_quantities, keep_out_radius
 from upswing.model.modes import WEAK_CONTROL, EquilibriumReport, analyse_all
 from upswing.model.rig import Rig
 from upswing.report import figures_modes, figures_rig, figures_time
@@ -25,7 +25,7 @@ from upswing.report.html import (
 )
 from upswing.report.verdict import Margin, Verdict, smallest_margin, tightest_budget
 from upswing.verification.budgets import Budget
-from upswing.verification.hazards import HazardNote, fall_energy, fall_tip_speed
+from upswing.verification.hazards import HazardNote, fall_energy, fall_tip_speed, swept_zone_note
 
 NOT_YET_RUN = ("balance design", "swing-up", "verification on the nonlinear model")
 
@@ -132,14 +132,7 @@ def modes_section(rig: Rig, reports: dict[str, EquilibriumReport]) -> Section:
 
 def model_hazards(rig: Rig, reports: dict[str, EquilibriumReport]) -> tuple[HazardNote, ...]:
     """Hazards that follow from the rig and its linear models alone (the design run adds those of its runs)."""
-    d = derived_quantities(rig)
-    notes = [HazardNote(
-        "swept zone",
-        f"The links can reach {d.reach:.2f} m from the shoulder axis"
-        + (f" and the shoulder rides {rig.cart.travel:.2f} m either side of the rail centre" if rig.cart else "")
-        + f". Keep people at least {keep_out_radius(rig):.2f} m from {keep_out_origin(rig)} while the drive is "
-          "enabled, or guard the zone.",
-        ("ISO 12100", "ISO 14120", "ISO 13857"))]
+    notes = [swept_zone_note(rig)]
     upright = reports["upright"]
     if upright.growth_rates:
         notes.append(HazardNote(

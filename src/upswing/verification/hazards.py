@@ -41,18 +41,23 @@ def fall_tip_speed(rig: Rig) -> float:
     return d.reach * math.sqrt(2.0 * fall_energy(rig) / d.inertia_about_pivot)
 
 
-def hazard_notes(rig: Rig, budgets: tuple[Budget, ...], *, rho_summary: str, success_rate: float,
-                 dropout_ms: float | None, dropout_tested_ms: tuple[float, ...]) -> tuple[HazardNote, ...]:
-    """Notes from the budgets, the region-of-attraction summary and the drop-out study."""
-    by = {b.name: b for b in budgets}
+def swept_zone_note(rig: Rig) -> HazardNote:
+    """The keep-out note every result carries: the swept circle, the rail, and the keep-out distance and origin."""
     d = derived_quantities(rig)
-    notes = [HazardNote(
+    return HazardNote(
         "swept zone",
         f"The links sweep a circle of radius {d.swept_radius:.2f} m about the shoulder"
         + (f", anywhere along {2 * rig.cart.travel:.2f} m of rail" if rig.cart else "")
         + f". Keep people at least {keep_out_radius(rig):.2f} m from {keep_out_origin(rig)} while the drive is "
           "enabled and guard the zone (fixed or interlocked guards).",
-        ("ISO 12100", "ISO 14120", "ISO 13857"))]
+        ("ISO 12100", "ISO 14120", "ISO 13857"))
+
+
+def hazard_notes(rig: Rig, budgets: tuple[Budget, ...], *, rho_summary: str, success_rate: float,
+                 dropout_ms: float | None, dropout_tested_ms: tuple[float, ...]) -> tuple[HazardNote, ...]:
+    """Notes from the budgets, the region-of-attraction summary and the drop-out study."""
+    by = {b.name: b for b in budgets}
+    notes = [swept_zone_note(rig)]
     tip = by["tip.peak_speed"].value
     ke = by["links.peak_kinetic_energy"].value
     notes.append(HazardNote(

@@ -19,7 +19,7 @@ from upswing.commands.common import Outcome, add_rig_argument, load, rig_header,
 from upswing.errors import RequestError
 from upswing.export.folders import stage_output
 from upswing.export.jsonable import dumps
-from upswing.export.swingup_files import write_swingup_files
+from upswing.export.swingup_files import handover_json, supervision_json, write_swingup_files
 from upswing.model.rig import Rig
 from upswing.synthesis.swingup import SizingResult, TradeoffCurve, plan_swingup, size_motor, tradeoff_curve
 from upswing.synthesis.swingup.energy import unsuited_reason
@@ -98,7 +98,7 @@ def run(args: argparse.Namespace) -> Outcome:
     folder = None
     if args.export:
         with stage_output(args.export, "swingup") as staged:
-            files = write_swingup_files(staged.path, rig, v.table)
+            files = write_swingup_files(staged.path, rig, v.table, handover=v.rule, supervision=v.supervision)
             (staged.path / "verification.json").write_text(dumps(data) + "\n", encoding="utf-8")
         folder = str(staged.final_path)
         data["export_folder"] = folder
@@ -147,7 +147,10 @@ def swingup_fields(v: SwingUpVerification) -> dict[str, Any]:
                     "handover_time": v.nominal.handover_time},
         "handover": {"rho_in": v.rho_in, "rho_out": v.rho_out, "source": v.rho_source,
                      "times": v.handover_summary,
-                     "rule": "balance engages when (x - x_eq)' P (x - x_eq) <= rho_in and releases above rho_out"},
+                     "rule": "balance engages when (x - x_eq)' P (x - x_eq) <= rho_in and releases above rho_out",
+                     **({} if v.rule is None else {k: val for k, val in handover_json(v.rule).items()
+                                                   if k in ("P", "x_eq")})},
+        "supervision": None if v.supervision is None else supervision_json(v.supervision),
         "verdict": v.verdict,
         "reasons": list(v.reasons),
         "required_success": v.required_success,
@@ -169,6 +172,15 @@ def swingup_fields(v: SwingUpVerification) -> dict[str, Any]:
 
 def _fmt(x: float, unit: str = "s") -> str:
     return "never" if x is None or not math.isfinite(x) else f"{x:.3f} {unit}"
+
+
+def _supervision_lines(v: SwingUpVerification) -> list[str]:
+    s = v.supervision
+    if s is None:
+        return []
+    return [f"stop conditions for the drive (run them as a safety function, ISO 13849-1): {s.rule}; checked on "
+            f"{s.checked_on} runs they were not derived from: {s.false_trips} nuisance stops, {s.missed_stopped} "
+            f"of {s.missed} missed catches stopped"]
 
 
 def _miss_lines(v: SwingUpVerification) -> list[str]:
@@ -197,6 +209,7 @@ def swingup_text(rig: Rig, v: SwingUpVerification, folder: str | None) -> str:
         *[f"  - {r}" for r in v.reasons],
         f"outcomes: {', '.join(f'{k}: {n}' for k, n in v.outcomes.items())}",
         *_miss_lines(v),
+        *_supervision_lines(v),
         f"nominal run: {v.nominal.status}, hand-over at {_fmt(v.nominal.handover_time)}",
         f"hand-over: x'Px <= {v.rho_in:.4g} engages balance, above {v.rho_out:.4g} releases ({v.rho_source}); "
         f"times over caught rollouts: min {_fmt(v.handover_summary['min'])}, median "

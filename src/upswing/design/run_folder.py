@@ -103,12 +103,14 @@ def _verification_json(run: DesignRun) -> dict[str, Any]:
             "warnings": list(run.rig.warnings), **safety_block()}
 
 
-def _swingup_table_files(folder: Path, rig, table) -> tuple[list[str], str]:
+def _swingup_table_files(folder: Path, rig, table, check=None) -> tuple[list[str], str]:
     """The swing-up exports of ``upswing.export.swingup_files`` (present in builds with the tracking synthesis):
-    the file names written and the note on the C header (written, or why not)."""
+    the file names written and the note on the C header (written, or why not). With the verification ``check``
+    the hand-over rule and the stop conditions it verified go in too."""
     from upswing.export.swingup_files import write_swingup_files
 
-    files = write_swingup_files(folder, rig, table)
+    files = write_swingup_files(folder, rig, table, handover=getattr(check, "rule", None),
+                                supervision=getattr(check, "supervision", None))
     return [Path(p).name for p in (files.csv, files.json, files.c_header) if p is not None], files.note
 
 
@@ -168,7 +170,7 @@ def write_run_folder(run: DesignRun, parent: str | Path) -> RunFolder:
             if s.verification is not None:
                 put(folder, vf.SWINGUP_MONTE_CARLO_CSV, vf.swingup_montecarlo_csv(rig, s.verification))
             if s.tracking is not None:
-                names, note = _swingup_table_files(folder, rig, s.tracking)
+                names, note = _swingup_table_files(folder, rig, s.tracking, s.verification)
                 written += names
                 export_notes.append(f"swing-up table: {note}")
     return RunFolder(path=staged.final_path, files=tuple(written), summary=result["summary"], report_s=report_s,

@@ -15,6 +15,12 @@ translation unit that defines ``UPSWING_SWINGUP_TABLE_DEFINE`` before including 
 arrays fit in the stated memory budget (default 64 KiB), since a microcontroller's flash is the limit; otherwise
 the result says how many bytes it would need.
 
+With a verified swing-up the writers add what the firmware needs to do exactly what was verified: the hand-over
+rule (the balance cost-to-go matrix P, the upright x_eq and the levels rho_in / rho_out: balance engages when
+(x - x_eq)' P (x - x_eq) <= rho_in, releases above rho_out, and engages after the last row in any case) and the
+stop conditions of :mod:`upswing.verification.supervision` (catch deadline, speed and rail windows), in
+``swingup.json`` and, as arrays and macros, in the C header.
+
 These writers put files into a folder the caller provides (the CLI stages it with
 :func:`upswing.export.folders.stage_output`, so a run is never half-written and never overwrites another).
 """
@@ -41,7 +47,8 @@ from upswing.export.header import header_lines as export_header_lines
 from upswing.export.jsonable import dumps
 from upswing.model.rig import INPUT_UNITS, Rig
 from upswing.safety import CAUTIONS, GOVERNING
-from upswing.synthesis.swingup.tracking import TrackingTable
+from upswing.synthesis.swingup.tracking import HandoverRule, TrackingTable
+from upswing.verification.supervision import Supervision
 
 CSV_NAME = "swingup.csv"
 JSON_NAME = "swingup.json"
@@ -118,9 +125,36 @@ def csv_text(rig: Rig, table: TrackingTable) -> str:
     return "\n".join(out) + "\n"
 
 
-def json_object(rig: Rig, table: TrackingTable) -> dict[str, Any]:
-    """The table as one JSON-ready object: the common header, the law, and t, x_ref, u_ff, K as lists."""
+def handover_json(rule: HandoverRule) -> dict[str, Any]:
+    """The hand-over rule as JSON fields (P as a list of rows)."""
+    return {"P": rule.P, "x_eq": rule.x_eq, "rho_in": rule.rho_in, "rho_out": rule.rho_out,
+            "rule": "balance engages when (x - x_eq)' P (x - x_eq) <= rho_in (angle errors wrapped), releases above "
+                    "rho_out, and engages after the table's last row in any case"}
+
+
+def supervision_json(sup: Supervision) -> dict[str, Any]:
+    """The stop conditions as JSON fields."""
+    return {"catch_level": sup.catch_level, "catch_deadline_s": sup.catch_deadline,
+            "speed_limits": {joint: value for joint, value, _ in sup.speed_limits},
+            "speed_units": {joint: unit for joint, _, unit in sup.speed_limits},
+            "rail_limit_m": sup.rail_limit, "rule": sup.rule, "derived_from_runs": sup.derived_from,
+            "checked_on_runs": sup.checked_on, "false_trips": sup.false_trips, "missed_runs": sup.missed,
+            "missed_stopped": sup.missed_stopped,
+            "note": "derived from the even-numbered Monte Carlo runs, checked on the odd-numbered ones; run these "
+                    "checks as a safety function of the drive (ISO 13849-1) and stop with category 0 or 1 "
+                    "(IEC 60204-1)"}
+
+
+def json_object(rig: Rig, table: TrackingTable, handover: HandoverRule | None = None,
+                supervision: Supervision | None = None) -> dict[str, Any]:
+    """The table as one JSON-ready object: the common header, the law, and t, x_ref, u_ff, K as lists; with a
+    verified swing-up also ``handover`` and ``supervision`` (module docstring)."""
     _check(rig, table)
+    extra: dict[str, Any] = {}
+    if handover is not None:
+        extra["handover"] = handover_json(handover)
+    if supervision is not None:
+        extra["supervision"] = supervision_json(supervision)
     return {
         **rig_header(rig),
         "kind": "swingup table",
@@ -137,6 +171,7 @@ def json_object(rig: Rig, table: TrackingTable) -> dict[str, Any]:
         "x_ref": table.x_ref,
         "u_ff": table.u_ff,
         "K": table.K,
+        **extra,
         **safety_block(),
     }
 
@@ -162,10 +197,35 @@ def _c_rows(a: np.ndarray, indent: str) -> str:
     return "{" + inner + "}"
 
 
-def c_header_text(rig: Rig, table: TrackingTable) -> str:
+def _c_catch_parts(handover: HandoverRule | None, supervision: Supervision | None) -> tuple[str, str, str]:
+    """Macros, declarations and definitions of the hand-over rule and the stop conditions (empty when not given)."""
+    macros, declarations, definitions = [], [], []
+    if handover is not None:
+        macros += [f"#define UPSWING_HANDOVER_RHO_IN {_c_float(handover.rho_in)}",
+                   f"#define UPSWING_HANDOVER_RHO_OUT {_c_float(handover.rho_out)}"]
+        declarations += ["extern const float upswing_handover_P[UPSWING_SWINGUP_STATES][UPSWING_SWINGUP_STATES];",
+                         "extern const float upswing_handover_x_eq[UPSWING_SWINGUP_STATES];"]
+        definitions += ["const float upswing_handover_P[UPSWING_SWINGUP_STATES][UPSWING_SWINGUP_STATES] =",
+                        f"{_c_rows(handover.P, '')};",
+                        f"const float upswing_handover_x_eq[UPSWING_SWINGUP_STATES] = {_c_rows(handover.x_eq, '')};"]
+    if supervision is not None and np.isfinite(supervision.catch_deadline):
+        macros.append(f"#define UPSWING_STOP_CATCH_DEADLINE_S {_c_float(supervision.catch_deadline)}")
+        for joint, value, _ in supervision.speed_limits:
+            macros.append(f"#define UPSWING_STOP_SPEED_{joint.upper()} {_c_float(value)}")
+        if supervision.rail_limit is not None:
+            macros.append(f"#define UPSWING_STOP_RAIL_M {_c_float(supervision.rail_limit)}")
+    return tuple(("\n" + "\n".join(part)) if part else "" for part in (macros, declarations, definitions))
+
+
+def c_header_text(rig: Rig, table: TrackingTable, handover: HandoverRule | None = None,
+                  supervision: Supervision | None = None) -> str:
     """The C99 header: macros for the sizes and rate, ``extern const float`` declarations, and the definitions
-    behind ``#ifdef UPSWING_SWINGUP_TABLE_DEFINE``."""
+    behind ``#ifdef UPSWING_SWINGUP_TABLE_DEFINE``; with a verified swing-up also the hand-over rule
+    (``upswing_handover_P``, ``upswing_handover_x_eq``, ``UPSWING_HANDOVER_RHO_IN``/``_OUT``) and the stop
+    conditions (``UPSWING_STOP_CATCH_DEADLINE_S``, ``UPSWING_STOP_SPEED_<JOINT>`` [rad/s or m/s],
+    ``UPSWING_STOP_RAIL_M``)."""
     _check(rig, table)
+    catch_macros, catch_declarations, catch_definitions = _c_catch_parts(handover, supervision)
     comment = c_comment(swingup_header(rig, table))[3:-4].rstrip("\n")  # the lines, inside this file's comment
     n, m = len(table.state_names), len(table.input_names)
     return f"""/*
@@ -183,12 +243,13 @@ def c_header_text(rig: Rig, table: TrackingTable) -> str:
 #define UPSWING_SWINGUP_INPUTS {m}
 #define UPSWING_SWINGUP_SAMPLE_RATE_HZ {_c_float(table.sample_rate)}
 #define UPSWING_SWINGUP_T0_S {_c_float(table.t[0])}
-#define UPSWING_SWINGUP_BYTES {c_table_bytes(table)}
+#define UPSWING_SWINGUP_BYTES {c_table_bytes(table)}{catch_macros}
 
 extern const float upswing_swingup_peak[UPSWING_SWINGUP_INPUTS];
 extern const float upswing_swingup_x_ref[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_STATES];
 extern const float upswing_swingup_u_ff[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS];
-extern const float upswing_swingup_K[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS][UPSWING_SWINGUP_STATES];
+extern const float upswing_swingup_K[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS][UPSWING_SWINGUP_STATES];\
+{catch_declarations}
 
 #ifdef UPSWING_SWINGUP_TABLE_DEFINE
 const float upswing_swingup_peak[UPSWING_SWINGUP_INPUTS] = {_c_rows(table.peak, "")};
@@ -197,7 +258,7 @@ const float upswing_swingup_x_ref[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_STATES] 
 const float upswing_swingup_u_ff[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS] =
 {_c_rows(table.u_ff, "")};
 const float upswing_swingup_K[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_INPUTS][UPSWING_SWINGUP_STATES] =
-{_c_rows(table.K, "")};
+{_c_rows(table.K, "")};{catch_definitions}
 #endif /* UPSWING_SWINGUP_TABLE_DEFINE */
 
 #endif /* UPSWING_SWINGUP_TABLE_H */
@@ -231,7 +292,8 @@ class SwingUpFiles:
 
 
 def write_swingup_files(folder: str | Path, rig: Rig, table: TrackingTable, *,
-                        c_budget_bytes: int = DEFAULT_C_BUDGET_BYTES) -> SwingUpFiles:
+                        c_budget_bytes: int = DEFAULT_C_BUDGET_BYTES, handover: HandoverRule | None = None,
+                        supervision: Supervision | None = None) -> SwingUpFiles:
     """Write ``swingup.csv``, ``swingup.json`` and (when it fits) ``swingup_table.h`` into ``folder``.
 
     Parameters
@@ -243,6 +305,8 @@ def write_swingup_files(folder: str | Path, rig: Rig, table: TrackingTable, *,
     table : TrackingTable
     c_budget_bytes : int
         Memory available for the C table [bytes]; default 64 KiB.
+    handover, supervision : optional
+        The verified hand-over rule and stop conditions (module docstring), added to the JSON and the C header.
 
     Raises
     ------
@@ -257,13 +321,13 @@ def write_swingup_files(folder: str | Path, rig: Rig, table: TrackingTable, *,
     csv_path = folder / CSV_NAME
     json_path = folder / JSON_NAME
     csv_path.write_text(csv_text(rig, table), encoding="utf-8")
-    json_path.write_text(dumps(json_object(rig, table)) + "\n", encoding="utf-8")
+    json_path.write_text(dumps(json_object(rig, table, handover, supervision)) + "\n", encoding="utf-8")
     need = c_table_bytes(table)
     if need > c_budget_bytes:
         note = (f"C header not written: the table needs {need} bytes of single-precision floats, more than the "
                 f"budget of {c_budget_bytes} bytes; raise the budget, lower the rate or shorten the swing-up")
         return SwingUpFiles(csv_path, json_path, None, need, c_budget_bytes, note)
     c_path = folder / C_HEADER_NAME
-    c_path.write_text(c_header_text(rig, table), encoding="utf-8")
+    c_path.write_text(c_header_text(rig, table, handover, supervision), encoding="utf-8")
     note = f"C header written: {need} bytes of {c_budget_bytes} available"
     return SwingUpFiles(csv_path, json_path, c_path, need, c_budget_bytes, note)

@@ -56,6 +56,19 @@ def verified_blocks(rig: Rig, check) -> list:
               "How the tracked swing-ups ended ('caught and held': the balance loop engaged and held the links in "
               "the settling box for the final second)."),
     ]
+    sup = getattr(check, "supervision", None)
+    if sup is not None and np.isfinite(sup.catch_deadline):
+        rows = [("balance cost-to-go must reach", f"{sup.catch_level:.4g}", "-"),
+                ("... by, after the start", f"{sup.catch_deadline:.3f}", "s")]
+        rows += [(f"{joint} speed must stay below", f"{value:.3g}", unit) for joint, value, unit in sup.speed_limits]
+        if sup.rail_limit is not None:
+            rows.append(("cart distance from centre must stay below", f"{sup.rail_limit:.3g}", "m"))
+        blocks.append(Table(
+            ("stop the drive unless", "value", "unit"), tuple(rows),
+            f"Stop conditions for the drive's supervision, derived from {sup.derived_from} caught runs and checked "
+            f"on {sup.checked_on} others: {sup.false_trips} nuisance stops, {sup.missed_stopped} of {sup.missed} "
+            "missed catches stopped. Run them as a safety function (ISO 13849-1) with stop category 0 or 1 "
+            "(IEC 60204-1); swingup.json and the C header carry them."))
     notable = [c for c in getattr(check, "correlations", ()) if c.notable]
     if notable:
         blocks.append(Table(

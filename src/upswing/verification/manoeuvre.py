@@ -44,7 +44,7 @@ from upswing.safety import CAUTIONS
 from upswing.synthesis.balance import design_balance
 from upswing.synthesis.swingup import SwingUpPlan, plan_swingup
 from upswing.synthesis.swingup.energy import energy_law_params
-from upswing.synthesis.swingup.tracking import TrackingTable, handover_rule, tvlqr_from_reference
+from upswing.synthesis.swingup.tracking import HandoverRule, TrackingTable, handover_rule, tvlqr_from_reference
 from upswing.verification.budgets import Budget, compute_budgets
 from upswing.verification.controllers import MEASUREMENTS, balance_controller
 from upswing.verification.hazards import HazardNote, hazard_notes
@@ -58,6 +58,7 @@ from upswing.verification.montecarlo import (
 from upswing.verification.roa import estimate_region
 from upswing.verification.simulate import STATUS, Bounds, Rollouts, SimulationSetup, simulate
 from upswing.verification.stats import wilson_interval
+from upswing.verification.supervision import Supervision, derive_supervision
 from upswing.verification.swingup_control import CatchController, energy_law, tracking_law
 from upswing.verification.verdict import Decision, decide
 
@@ -159,6 +160,12 @@ class SwingUpVerification:
     correlations : tuple of Correlation
         How the misses follow each uncertain parameter, strongest first (empty when none or all were caught):
         the number to measure better when the catch rate falls short.
+    level_times : ndarray (rollouts,) or None
+        Per rollout, the first time the balance cost-to-go reached rho_in [s] (NaN if never).
+    supervision : Supervision or None
+        Stop conditions for the firmware derived from the runs (:mod:`upswing.verification.supervision`).
+    rule : HandoverRule or None
+        The hand-over rule the runs used (P, x_eq, rho_in, rho_out): what the firmware must apply.
     """
 
     method: str
@@ -192,6 +199,9 @@ class SwingUpVerification:
     cautions: tuple[str, ...] = SWINGUP_CAUTIONS
     caught: np.ndarray | None = None
     correlations: tuple[Correlation, ...] = ()
+    level_times: np.ndarray | None = None
+    supervision: Supervision | None = None
+    rule: HandoverRule | None = None
 
     def outcome_of(self, i: int) -> str:
         """How rollout ``i`` ended, in the words of ``outcomes``."""
@@ -317,17 +327,19 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
     rng = np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(STREAM, 0)))
     P, _ = sample_parameters(rig, int(rollouts), rng)
     x0 = start_state + sample_offsets(rig, int(rollouts), START_OFFSETS, rng)
-    parts, times, at_end = [], [], []
+    parts, times, at_end, levels = [], [], [], []
     sim_clock = time.perf_counter()
     for block, lo in enumerate(range(0, int(rollouts), CHUNK)):
         hi = min(lo + CHUNK, int(rollouts))
         parts.append(simulate(rig, controller, x0[lo:hi], P[lo:hi], setup=setup, seed=seed, stream=STREAM,
                               block=block, ids=np.arange(lo, hi)))
         times.append(controller.handover_time.copy())
+        levels.append(controller.level_time.copy())
         at_end.append(controller.balancing_at_end.copy())
     simulate_s = time.perf_counter() - sim_clock
     results = Rollouts.concatenate(parts)
     handover_times = np.concatenate(times)
+    level_times = np.concatenate(levels)
     caught = results.held & np.concatenate(at_end)
     successes = int(caught.sum())
     outcomes = {"caught and held": successes}
@@ -348,7 +360,10 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
     judged = tuple(b for b in budgets if not b.name.endswith(".saturation_time"))
     misses = {k: n for k, n in outcomes.items() if k != "caught and held"}
     decision = decide(successes, int(rollouts), judged, required, outcomes=misses)
-    hazards = _hazards(rig, budgets, successes / int(rollouts), summary)
+    supervision = derive_supervision(rig, caught=caught, level_times=level_times, peak_speed=results.peak_speed,
+                                     peak_rail=results.peak_rail, catch_level=rule.rho_in,
+                                     duration=table.end_time if table is not None else horizon_s)
+    hazards = _hazards(rig, budgets, successes / int(rollouts), summary, supervision)
     return SwingUpVerification(
         method=method, law=law_text, plan=plan if method == "optimal" else None, table=table,
         measurement=measurement, rho_in=rule.rho_in, rho_out=rule.rho_out, rho_source=source, horizon_s=horizon_s,
@@ -358,11 +373,12 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
         hazards=hazards, verdict=decision.verdict, reasons=decision.reasons, decision=decision,
         required_success=required, results=results, parameters=P, simulate_s=simulate_s,
         total_s=time.perf_counter() - start_clock, caught=caught,
-        correlations=failure_correlations(rig, results, P, failed=~caught))
+        correlations=failure_correlations(rig, results, P, failed=~caught), level_times=level_times,
+        supervision=supervision, rule=rule)
 
 
-def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float,
-             summary: dict[str, float]) -> tuple[HazardNote, ...]:
+def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float, summary: dict[str, float],
+             supervision: Supervision) -> tuple[HazardNote, ...]:
     """The verification engine's notes, with the balance-only ones (tip speed while balancing, the drop-out
     study, which is not run here) replaced by notes on the swing-up."""
     by = {b.name: b for b in budgets}
@@ -385,7 +401,10 @@ def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float,
         f"During the swing-up the tip reached {by['tip.peak_speed'].value:.2f} m/s and the links carried up to "
         f"{by['links.peak_kinetic_energy'].value:.3g} J; {catch}. A missed catch leaves the links falling or "
         "whirling with that energy: the drive must stop (stop category 0 or 1) when the catch has not happened by "
-        "a set time or a speed leaves its window.",
+        "a set time or a speed leaves its window"
+        + (f"; from these runs: {supervision.rule} (checked on {supervision.checked_on} runs it was not derived "
+           f"from: {supervision.false_trips} nuisance stops, {supervision.missed_stopped} of {supervision.missed} "
+           "missed catches stopped)." if math.isfinite(supervision.catch_deadline) else "."),
         ("ISO 12100", "IEC 60204-1", "ISO 13850", "ISO 14120")))
     keep.append(HazardNote(
         "sensor fault during swing-up",

@@ -31,12 +31,14 @@ Swing-up laws (``law(t, X) -> U``, X absolute states (N, n), U (N, m) saturated 
 * :func:`energy_law`: the family's energy-based law of :mod:`upswing.synthesis.swingup.energy`.
 
 Hand-over times: the first sample at which each rollout engaged balance is written to
-:attr:`CatchController.handover_time` (NaN if never), and whether it was balancing at its last sample to
-:attr:`CatchController.balancing_at_end`, both for the rollouts of the latest :meth:`CatchController.start`. The
-simulator keeps a controller's per-rollout state only in ``memory``; the rollout's row at ``start`` travels in a
-memory column so these logs find their row however the simulator compacts the batch. The logs live in the process
-that runs the simulation: use :func:`upswing.verification.simulate.simulate` in-process (as
-:mod:`upswing.verification.manoeuvre` does), not a process pool.
+:attr:`CatchController.handover_time` (NaN if never; a table's end engages it in any case), the first sample at
+which the cost-to-go reached rho_in to :attr:`CatchController.level_time` (NaN if never), and whether it was
+balancing at its last sample to :attr:`CatchController.balancing_at_end`, all for the rollouts of the latest
+:meth:`CatchController.start`. The simulator keeps a controller's per-rollout state only in ``memory``; the
+rollout's row at ``start`` travels in a memory column so these logs find their row however the simulator
+compacts the batch. The logs live in the process that runs the simulation: use
+:func:`upswing.verification.simulate.simulate` in-process (as :mod:`upswing.verification.manoeuvre` does), not a
+process pool.
 """
 
 from __future__ import annotations
@@ -126,6 +128,7 @@ class CatchController:
         self._seed_map = None if est is None else np.linalg.pinv(np.asarray(est.Cxi, dtype=float)).T
         self._Dyt = None if est is None else np.asarray(est.Dy, dtype=float).T
         self.handover_time = np.zeros(0)
+        self.level_time = np.zeros(0)
         self.balancing_at_end = np.zeros(0, dtype=bool)
 
     # memory columns: [row id, mode, y_prev (p), rate (p) (encoders only), balance memory]
@@ -136,6 +139,7 @@ class CatchController:
     def start(self, y: np.ndarray) -> np.ndarray:
         N = y.shape[0]
         self.handover_time = np.full(N, np.nan)
+        self.level_time = np.full(N, np.nan)
         self.balancing_at_end = np.zeros(N, dtype=bool)
         parts = [np.arange(N, dtype=float)[:, None], np.zeros((N, 1))]
         if self.measurement == "encoders":
@@ -166,6 +170,10 @@ class CatchController:
         ids, mode, y_prev, rate, mem_b = self._split(memory)
         x_hat, rate = self._estimate(t, y, y_prev, rate)
         before = mode > 0.5
+        met = self.rule.level(x_hat) <= self.rule.rho_in
+        if met.any():
+            rows = ids[met].astype(int)
+            self.level_time[rows[np.isnan(self.level_time[rows])]] = t
         balancing = self.rule.update(x_hat, before)
         if self.table_end is not None and t >= self.table_end - 1e-9:
             balancing[:] = True

@@ -161,6 +161,7 @@ VIOLATIONS: dict[tuple[str, str], list[tuple[dict[str, Any], str]]] = {
         (_set("balance.r", [1.0, 1.0]), "balance.r"),
         (_set("balance.r", _DELETE), "balance"),
     ],
+    ("balance", "effort_noise"): [(_set("balance.effort_noise", [0.1, 0.1]), "balance.effort_noise")],
     ("balance", "velocity_cutoff"): [(_set("balance.velocity_cutoff", 250.0), "balance.velocity_cutoff")],
     ("balance", "cart_process_noise"): [(_set("balance.cart_process_noise", 1.0), "balance.cart_process_noise")],
     ("uncertainty", ""): [(_set("uncertainty.cart", {"mass": 0.1}), "uncertainty.cart")],

@@ -117,6 +117,10 @@ BAD_BALANCE = [
      "balance.process_noise", r"must be in \(0, inf\) rad/s\^2; got -1"),
     ("cart noise on a fixed base", ("sample_rate = 500.0", "sample_rate = 500.0\ncart_process_noise = 1.0"),
      "balance.cart_process_noise", "has no cart"),
+    ("wrong effort noise length", ("sample_rate = 500.0", "sample_rate = 500.0\neffort_noise = [0.1, 0.1]"),
+     "balance.effort_noise", r"one value per input \(1 inputs\); got 2"),
+    ("negative effort noise", ("sample_rate = 500.0", "sample_rate = 500.0\neffort_noise = [-0.1]"),
+     "balance.effort_noise[0]", r"must be in \[0, inf\) N \| N m; got -0.1"),
     ("typo", ("sample_rate = 500.0", "sample_rte = 500.0"), "balance.sample_rte", 'did you mean "sample_rate"'),
 ]
 

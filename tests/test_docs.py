@@ -161,6 +161,7 @@ VIOLATIONS: dict[tuple[str, str], list[tuple[dict[str, Any], str]]] = {
         (_set("balance.r", [1.0, 1.0]), "balance.r"),
         (_set("balance.r", _DELETE), "balance"),
     ],
+    ("balance", "effort_noise"): [(_set("balance.effort_noise", [0.1, 0.1]), "balance.effort_noise")],
     ("balance", "velocity_cutoff"): [(_set("balance.velocity_cutoff", 250.0), "balance.velocity_cutoff")],
     ("balance", "cart_process_noise"): [(_set("balance.cart_process_noise", 1.0), "balance.cart_process_noise")],
     ("uncertainty", ""): [(_set("uncertainty.cart", {"mass": 0.1}), "uncertainty.cart")],
@@ -390,3 +391,39 @@ def test_user_guide_lists_every_run_folder_file() -> None:
     section = guide[guide.index("What the run folder holds"):guide.index("**The verdict**")]
     listed = set(re.findall(r"`([a-z_]+\.(?:html|json|toml|csv|h))`", section))
     assert listed == set(DESCRIPTIONS)
+
+
+def test_quoted_balance_margins_are_the_demo_rigs_as_they_are_now() -> None:
+    # docs/user-guide.md and the cart rig's [balance] comment quote the margins the design verdict judges (discrete
+    # LQR + Kalman filter, design.pipeline.RUNNING_LOOP); recomputed here so a change to a rig or the code cannot
+    # leave them stale. Every demo rig's judged loop meets the rule (decision.loop_margins).
+    from upswing.design.decision import loop_margins
+    from upswing.design.pipeline import RUNNING_LOOP
+    from upswing.synthesis.study import study_balance
+
+    guide = " ".join((ROOT / "docs" / "user-guide.md").read_text(encoding="utf-8").split())
+    cart_lines = (ROOT / "scenarios" / "cart-double.toml").read_text(encoding="utf-8").splitlines()
+    cart_file = " ".join(" ".join(line.lstrip("# ") for line in cart_lines).split())  # comments may wrap
+    judged = {}
+    for name in ("acrobot", "pendubot", "cart-double", "arm-2dof"):
+        report = study_balance(load_rig(ROOT / "scenarios" / f"{name}.toml")).margins[RUNNING_LOOP]
+        assert all(m.ok for m in loop_margins(report)), name
+        judged[name] = report.loops
+
+    def factor(lm) -> float:
+        return min(lm.gain_margin[1], 1.0 / lm.gain_margin[0])
+
+    cart, (acrobot,), (pendubot,), arm = (judged[n][0] if n == "cart-double" else judged[n]
+                                          for n in ("cart-double", "acrobot", "pendubot", "arm-2dof"))
+    quotes = {
+        guide: [f"the gain margin factor is {factor(cart):.2f}, the phase margin {cart.phase_margin_deg:.0f} degrees",
+                f"acrobot {factor(acrobot):.2f} (phase {acrobot.phase_margin_deg:.0f} degrees)",
+                f"pendubot {factor(pendubot):.2f} ({pendubot.phase_margin_deg:.0f} degrees)",
+                f"fully actuated arm {factor(arm[0]):.2f} and {factor(arm[1]):.2f} ({arm[0].phase_margin_deg:.0f} and "
+                f"{arm[1].phase_margin_deg:.0f} degrees)"],
+        cart_file: [f"factor {factor(cart):.2f} ({cart.gain_margin[0]:.3f} .. {cart.gain_margin[1]:.2f}), phase margin "
+                    f"{cart.phase_margin_deg:.0f} deg, disk margin {cart.disk_margin:.2f}"],
+    }
+    for text, expected in quotes.items():
+        for quoted in expected:
+            assert quoted in text, f"should quote {quoted!r} for the demo rigs as they are now"

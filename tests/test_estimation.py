@@ -14,7 +14,9 @@ from balance_helpers import DEMO_RIGS, design, finite_difference, kalman, rig
 from upswing.errors import RequestError
 from upswing.model.modes import measured_states, output_matrix
 from upswing.synthesis.estimation import (
+    effort_noise_std,
     finite_difference_estimator,
+    kalman_estimator,
     measurement_noise_std,
     process_noise_input,
 )
@@ -38,9 +40,12 @@ def test_kalman_gain_matches_python_control(name):
     # Reference: python-control's dlqe gives the predictor gain L_p = Ad M C' (C M C' + R_v)^-1, which must equal
     # Ad times our measurement-update gain, with the same covariance M. Both come from Schur-method Riccati
     # solvers; the covariances are ~1e-7 rad^2 with condition numbers up to ~1e8, so 1e-6 relative is the bar.
+    # Noise enters as held accelerations (Gamma) and held efforts (Bd, the demo cart's [balance].effort_noise);
+    # dlqe forms G QN G' itself.
     d, est, r = design(name), kalman(name), rig(name)
-    Ad, _ = d.discrete_plant
-    Lp, M, E = control.dlqe(Ad, process_noise_input(d), output_matrix(r), np.diag(est.process_noise_std**2),
+    Ad, Bd = d.discrete_plant
+    Lp, M, E = control.dlqe(Ad, np.hstack([process_noise_input(d), Bd]), output_matrix(r),
+                            np.diag(np.concatenate([est.process_noise_std, est.effort_noise_std]) ** 2),
                             np.diag(est.measurement_std**2))
     np.testing.assert_allclose(Ad @ est.gain, Lp, rtol=1e-6, atol=1e-6 * np.abs(Lp).max())
     np.testing.assert_allclose(est.covariance, M, rtol=1e-6, atol=1e-6 * np.abs(M).max())
@@ -51,10 +56,11 @@ def test_kalman_gain_is_the_limit_of_the_time_varying_filter():
     # Plain slow reference: the Riccati difference equation of the time-varying filter (predict, update) converges
     # to the steady-state covariance from any positive start (Anderson & Moore, 1979, sec. 4.4).
     d, est, r = design("cart-double"), kalman("cart-double"), rig("cart-double")
-    Ad, _ = d.discrete_plant
+    Ad, Bd = d.discrete_plant
     C = output_matrix(r)
     Gamma = process_noise_input(d)
-    Qw = Gamma @ np.diag(est.process_noise_std**2) @ Gamma.T
+    assert np.all(est.effort_noise_std > 0)  # the demo cart models a force at the drive
+    Qw = Gamma @ np.diag(est.process_noise_std**2) @ Gamma.T + Bd @ np.diag(est.effort_noise_std**2) @ Bd.T
     Rv = np.diag(est.measurement_std**2)
     M = np.eye(6) * 1e-2
     for _ in range(5000):
@@ -103,12 +109,14 @@ def test_kalman_closed_loop_error_is_the_filter_covariance(name):
     np.testing.assert_allclose(est.error_std, np.sqrt(np.diag(Z)), rtol=1e-5)
 
 
-def test_closed_loop_error_matches_monte_carlo():
-    # Plain slow reference for the finite-difference figures: simulate the closed loop with the noise model and
-    # measure the error spread. 40,000 samples with a correlation time of ~100 samples give ~5 % sampling error on
-    # a standard deviation; 12 % is the bar.
-    name = "acrobot"
-    d, est, r = design(name), finite_difference(name), rig(name)
+@pytest.mark.parametrize("name,kind", [("acrobot", "finite-difference"), ("cart-double", "kalman")])
+def test_closed_loop_error_matches_monte_carlo(name, kind):
+    # Plain slow reference for the closed-loop error figures: simulate the loop with the noise model (held
+    # accelerations through Gamma, held efforts through Bd: the demo cart's effort noise, readings) and measure
+    # the error spread. 40,000 samples with a correlation time of ~100 samples give ~5 % sampling error on a
+    # standard deviation; 12 % is the bar.
+    d, r = design(name), rig(name)
+    est = finite_difference(name) if kind == "finite-difference" else kalman(name)
     C = measurement_matrix(d, est)
     plant, ctrl = discrete_plant(d, C), discrete_controller(d, est)
     Gamma = process_noise_input(d)
@@ -124,7 +132,8 @@ def test_closed_loop_error_matches_monte_carlo():
         errors[k] = x - (est.Cxi @ xi + est.Dy @ y)
         u = ctrl.C @ c + ctrl.D @ y
         c = ctrl.A @ c + ctrl.B @ y
-        x = plant.A @ x + plant.B @ u + Gamma @ (rng.normal(size=Gamma.shape[1]) * est.process_noise_std)
+        x = plant.A @ x + plant.B @ (u + rng.normal(size=u.size) * est.effort_noise_std) \
+            + Gamma @ (rng.normal(size=Gamma.shape[1]) * est.process_noise_std)
     measured = errors[2000:].std(axis=0)
     np.testing.assert_allclose(measured, est.error_std, rtol=0.12)
 
@@ -197,3 +206,25 @@ def test_lqg_poles_use_the_delay_line():
 def test_cutoff_must_be_below_nyquist():
     with pytest.raises(RequestError, match=r"below half the loop rate"):
         finite_difference_estimator(rig("acrobot"), design("acrobot"), cutoff_hz=250.0)
+
+
+def test_effort_noise_defaults_to_none_and_enters_through_the_input_matrix():
+    # Without [balance].effort_noise the filter is the acceleration-only one; with it, Q_w gains Bd diag(s^2) Bd'
+    # (a held effort moves x[k+1] as the held command does: zero-order hold, common practice), checked against
+    # python-control's dlqe on that covariance, and the filter leans more on the readings: a larger gain.
+    from dataclasses import replace
+
+    r = rig("acrobot")
+    assert r.balance.effort_noise is None and np.all(effort_noise_std(r) == 0)
+    d = design("acrobot")
+    plain = kalman("acrobot")
+    noisy_rig = replace(r, balance=replace(r.balance, effort_noise=(0.2,)))
+    noisy = kalman_estimator(noisy_rig, d)
+    np.testing.assert_array_equal(noisy.effort_noise_std, [0.2])
+    Ad, Bd = d.discrete_plant
+    Gamma = process_noise_input(d)
+    Qw = Gamma @ np.diag(plain.process_noise_std**2) @ Gamma.T + 0.2**2 * Bd @ Bd.T
+    Lp, M, _ = control.dlqe(Ad, np.eye(4), output_matrix(r), Qw, np.diag(plain.measurement_std**2))
+    # Same tolerance as the plain dlqe comparison above (Schur solvers, covariances ~1e-7 rad^2).
+    np.testing.assert_allclose(noisy.covariance, M, rtol=1e-6, atol=1e-6 * np.abs(M).max())
+    assert np.linalg.norm(noisy.gain) > np.linalg.norm(plain.gain)

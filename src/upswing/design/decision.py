@@ -15,10 +15,13 @@ saturated) and the margin with the lowest ratio to its requirement.
 
 The margins a design run judges (:func:`loop_margins`, :func:`success_margin`):
 
-* at each actuator input of the loop that runs (discrete LQR with the velocity estimator): delay margin of at least
+* at each actuator input of the loop that runs (discrete LQR with the velocity estimator, broken at the plant input
+  after the zero-order hold, the other inputs closed): delay margin of at least
   :data:`~upswing.synthesis.margins.DELAY_MARGIN_MIN_SAMPLES` loop periods (the balance design's own flag), a gain
   margin factor of at least :data:`GAIN_FACTOR_MIN` both ways (6 dB, common practice) and a phase margin of at least
-  :data:`PHASE_MARGIN_MIN_DEG` (common practice);
+  :data:`PHASE_MARGIN_MIN_DEG` (common practice). "Both ways" is min(k_high, 1 / k_low) for the stable interval
+  (k_low, k_high) of input gain factors: a balancing loop is open-loop unstable, so too little drive (k_low, the
+  margin an estimator's lag erodes first) fails it as surely as too much;
 * the Monte Carlo success rate: the lower end of its 95 % Wilson interval against the required success rate;
 * controllability at upright: the scaled PBH margin against :data:`~upswing.model.modes.WEAK_CONTROL`.
 """

@@ -127,6 +127,7 @@ def balance_units(rig: Rig) -> dict[str, Any]:
         "margins": MARGIN_UNITS,
         "estimators": {"measurement_std": "rad or m (per measured entry)",
                        "process_noise_std": "rad/s^2 or m/s^2 (per coordinate)",
+                       "effort_noise_std": "N or N m (per input)",
                        "error_std": "state units", "poles": "dimensionless (z-plane)", "cutoff_hz": "Hz"},
     }
 

@@ -80,7 +80,8 @@ class Actuator:
 @dataclass(frozen=True)
 class Balance:
     """Balance design settings: LQR weights (``None`` means Bryson's rule), loop rate [Hz], delay [samples], and
-    the estimators' tuning: process noise [rad/s^2, m/s^2 for the cart] and the velocity filter's cut-off [Hz]."""
+    the estimators' tuning: process noise [rad/s^2, m/s^2 for the cart], effort noise at each input [N, N m]
+    (``None``: none) and the velocity filter's cut-off [Hz]."""
 
     q: tuple[float, ...] | None
     r: tuple[float, ...] | None
@@ -88,6 +89,7 @@ class Balance:
     delay_samples: int
     process_noise: float = schema.BALANCE.key("process_noise").default
     cart_process_noise: float = schema.BALANCE.key("cart_process_noise").default
+    effort_noise: tuple[float, ...] | None = None  # None: no effort noise in the filter's model
     velocity_cutoff: float | None = None  # None: sample_rate / 10 (upswing.synthesis.estimation)
 
 
@@ -483,9 +485,10 @@ class _Loader:
         values = self.read(given, schema.BALANCE, "balance")
         if "cart_process_noise" in given and n_states == len(STATE_NAMES["fixed"]):
             raise self.fail("balance.cart_process_noise", 'is given but base = "fixed" has no cart; remove it')
-        for name, expected, what in (("q", n_states, "states"), ("r", n_inputs, "inputs")):
+        for name, expected, what, entry in (("q", n_states, "states", "weight"), ("r", n_inputs, "inputs", "weight"),
+                                            ("effort_noise", n_inputs, "inputs", "value")):
             if values[name] is not None and len(values[name]) != expected:
-                raise self.fail(f"balance.{name}", f"must have one weight per {what[:-1]} ({expected} {what}); "
+                raise self.fail(f"balance.{name}", f"must have one {entry} per {what[:-1]} ({expected} {what}); "
                                                    f"got {len(values[name])}")
         if (values["q"] is None) != (values["r"] is None):
             raise self.fail("balance", "needs both q and r, or neither (Bryson's rule then picks both)")

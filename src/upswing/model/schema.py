@@ -176,6 +176,12 @@ BALANCE = Table(
             default=2.5, low=0.0, low_open=True, plausible=(0.01, 1000.0)),
         Key("cart_process_noise", "float", "m/s^2", "Kalman filter tuning: the same for the cart's acceleration "
             "(cart rigs only).", default=1.0, low=0.0, low_open=True, plausible=(0.001, 100.0)),
+        Key("effort_noise", "floats", "N | N m", "Kalman filter tuning: standard deviation of an unmodelled effort "
+            "at each actuated input, held over one sample, one per input in input order (drive force or torque error, "
+            "the friction the linear model leaves out, cogging, belt stretch). It enters through the input matrix, so "
+            "the filter no longer takes the commanded effort on trust; raising it returns the loop at the plant input "
+            "towards the full-state loop's margins (loop transfer recovery) for a little more encoder noise in the "
+            "estimate. Default: none.", default=None, low=0.0),
         Key("velocity_cutoff", "float", "Hz", "Cut-off of the first-order low-pass on the finite-difference "
             "velocity estimate; must be below half the loop rate (default: sample_rate / 10).", default=None,
             low=0.0, low_open=True),

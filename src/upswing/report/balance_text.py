@@ -8,6 +8,7 @@ import numpy as np
 
 from upswing.model.rig import Rig
 from upswing.report.text import cautions_text, complex_text, table
+from upswing.synthesis.estimation import kalman_setting
 from upswing.synthesis.study import BalanceStudy
 
 
@@ -38,7 +39,7 @@ def balance_text(rig: Rig, study: BalanceStudy, export_folder: str | None = None
            f"{d.riccati_residual_discrete:.1e}", ""]
     rows = []
     for est in (study.kalman, study.finite_difference):
-        setting = (f"process noise {', '.join(f'{v:g}' for v in est.process_noise_std)}" if est.kind == "kalman"
+        setting = (kalman_setting(est) if est.kind == "kalman"
                    else f"cut-off {est.cutoff_hz:g} Hz")
         vel = [f"{s}: {e:.3g}" for s, e in zip(d.state_names, est.error_std, strict=True) if s.endswith("_dot")]
         rows.append([est.kind, setting, f"{np.max(np.abs(est.poles)):.4f}",

@@ -60,6 +60,8 @@ CROSS_KEY_RULES: tuple[CrossKeyRule, ...] = (
     CrossKeyRule("actuator.<joint>", "stall", "stall and no_load_speed come together (a motor line) or not at all."),
     CrossKeyRule("balance", "q", "q has one entry per state (4 on a fixed base, 6 on a cart); r has one entry per "
                  "input; give both q and r or neither (then Bryson's rule sets both, see docs/theory.md)."),
+    CrossKeyRule("balance", "effort_noise", "effort_noise has one entry per input, in input order (cart, shoulder, "
+                 "elbow), like r."),
     CrossKeyRule("balance", "velocity_cutoff", "velocity_cutoff < sample_rate / 2 (below the Nyquist frequency)."),
     CrossKeyRule("balance", "cart_process_noise", 'cart_process_noise is an error when base = "fixed".'),
     CrossKeyRule("uncertainty", "", "`[uncertainty.cart]` is an error on a fixed base."),

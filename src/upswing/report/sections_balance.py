@@ -11,6 +11,7 @@ from upswing.design.responses import BalanceResponses
 from upswing.model.rig import Rig
 from upswing.report import figures_time
 from upswing.report.html import Notes, Paragraph, Section, Table, figure_image
+from upswing.synthesis.estimation import kalman_setting
 from upswing.synthesis.study import BalanceStudy
 
 DESIGN_WORDS = {"continuous": "continuous (reference)", "discrete": "discrete, exact state",
@@ -71,7 +72,7 @@ def margins_table(study: BalanceStudy) -> Table:
 def estimator_table(rig: Rig, study: BalanceStudy) -> Table:
     rows = []
     for est in (study.kalman, study.finite_difference):
-        setting = (f"process noise {', '.join(f'{v:g}' for v in est.process_noise_std)}" if est.kind == "kalman"
+        setting = (kalman_setting(est) if est.kind == "kalman"
                    else f"low-pass at {est.cutoff_hz:g} Hz")
         errors = ", ".join(f"{s} {e:.2g}" for s, e in zip(study.design.state_names, est.error_std, strict=True)
                            if s.endswith("_dot"))

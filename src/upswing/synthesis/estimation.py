@@ -25,6 +25,12 @@ Noise model (the same for both, so their figures compare):
   piecewise-constant white-acceleration model (Bar-Shalom, Li & Kirubarajan, 2001, sec. 6.3), carried through the
   rig's own zero-order-hold dynamics, Q_w = Gamma diag(sigma_a^2) Gamma', Gamma = integral_0^T e^(A s) ds E, with E
   putting the accelerations on the velocity rows.
+* Effort: optionally, an unmodelled effort at each actuated input, held over a sample, with standard deviation
+  ``[balance].effort_noise`` [N, N m] (drive force or torque error, the friction the linearization leaves out). It
+  enters where the commanded effort does, through Bd = integral_0^T e^(A s) ds B, adding Bd diag(sigma_u^2) Bd' to
+  Q_w. Fictitious noise in the input directions is the loop-transfer-recovery step of Doyle & Stein (1979, "Robustness
+  with observers", IEEE TAC 24(4)): as sigma_u grows the loop broken at the plant input tends to the full-state
+  loop's, whose margins the estimator otherwise erodes (Doyle, 1978). Default: none.
 
 Default tuning, 2.5 rad/s^2 on the joints and 1 m/s^2 on the cart, chosen by simulation
 (``benchmarks/study_estimator_defaults.py``: every demo rig, its own parameter spreads, quantized noisy encoders,
@@ -86,6 +92,9 @@ class EstimatorDesign:
     process_noise_std : ndarray, shape (n_q,)
         Standard deviation of each coordinate's unmodelled acceleration [rad/s^2, m/s^2] (the model both estimators
         are judged under; only the Kalman filter is tuned with it).
+    effort_noise_std : ndarray, shape (n_inputs,)
+        Standard deviation of the unmodelled effort at each input [N, N m]; zeros when the rig file sets none (part
+        of the same noise model).
     closed_loop_poles : ndarray
         Poles of the combined loop: plant, this estimator, the design's K_discrete and delay (the LQG poles for
         the Kalman filter); dimensionless.
@@ -113,6 +122,7 @@ class EstimatorDesign:
     state_names: tuple[str, ...]
     measurement_std: np.ndarray
     process_noise_std: np.ndarray
+    effort_noise_std: np.ndarray
     closed_loop_poles: np.ndarray
     error_std: np.ndarray
     gain: np.ndarray | None = None
@@ -141,6 +151,28 @@ def process_noise_std(rig: Rig) -> np.ndarray:
     return np.array([b.cart_process_noise if name == "x" else b.process_noise for name in measured_states(rig)])
 
 
+def effort_noise_std(rig: Rig) -> np.ndarray:
+    """Unmodelled effort standard deviation at each input [N, N m], in input order; zeros when not set."""
+    given = rig.balance.effort_noise
+    return np.zeros(len(rig.input_names)) if given is None else np.array(given, dtype=float)
+
+
+def process_noise_covariance(design: BalanceDesign, acceleration_std: np.ndarray, effort_std: np.ndarray
+                             ) -> np.ndarray:
+    """Q_w = Gamma diag(sigma_a^2) Gamma' + Bd diag(sigma_u^2) Bd': covariance of the noise driving x[k+1].
+
+    Parameters
+    ----------
+    acceleration_std : ndarray, shape (n_q,)
+        sigma_a per coordinate [rad/s^2, m/s^2].
+    effort_std : ndarray, shape (n_inputs,)
+        sigma_u per input [N, N m].
+    """
+    Gamma = process_noise_input(design)
+    Bd = design.discrete_plant[1]
+    return Gamma @ np.diag(acceleration_std**2) @ Gamma.T + Bd @ np.diag(effort_std**2) @ Bd.T
+
+
 def process_noise_input(design: BalanceDesign) -> np.ndarray:
     """Gamma = integral_0^T e^(A s) ds E: how a sample-held acceleration on each coordinate moves x[k+1]."""
     n = design.A.shape[0]
@@ -164,7 +196,8 @@ def kalman_estimator(rig: Rig, design: BalanceDesign) -> EstimatorDesign:
     """Steady-state discrete Kalman filter at the loop rate, in current-estimate form.
 
     With the prior covariance M solving the filter Riccati equation
-    M = Ad M Ad' - Ad M C' (C M C' + R_v)^-1 C M Ad' + Q_w (noise model in the module docstring),
+    M = Ad M Ad' - Ad M C' (C M C' + R_v)^-1 C M Ad' + Q_w (noise model in the module docstring, effort noise
+    included: :func:`process_noise_covariance`),
     the gain is L = M C' (C M C' + R_v)^-1 and, with xi the prior estimate,
 
         F = Ad (I - L C),  G = Ad L,  H = Bd,  Cxi = I - L C,  Dy = L.
@@ -179,9 +212,8 @@ def kalman_estimator(rig: Rig, design: BalanceDesign) -> EstimatorDesign:
     Ad, Bd = design.discrete_plant
     C = output_matrix(rig)
     n = Ad.shape[0]
-    Gamma = process_noise_input(design)
-    sigma_a = process_noise_std(rig)
-    Qw = Gamma @ np.diag(sigma_a**2) @ Gamma.T
+    sigma_a, sigma_u = process_noise_std(rig), effort_noise_std(rig)
+    Qw = process_noise_covariance(design, sigma_a, sigma_u)
     std = measurement_noise_std(rig)
     Rv = np.diag(std**2)
     try:
@@ -196,7 +228,8 @@ def kalman_estimator(rig: Rig, design: BalanceDesign) -> EstimatorDesign:
     est = EstimatorDesign(
         F=F, G=Ad @ L, H=Bd, Cxi=I_LC, Dy=L, kind="kalman", sample_rate=design.sample_rate,
         poles=np.linalg.eigvals(F).astype(complex), measured=measured_states(rig), state_names=rig.state_names,
-        measurement_std=std, process_noise_std=sigma_a, closed_loop_poles=np.zeros(0), error_std=np.zeros(n),
+        measurement_std=std, process_noise_std=sigma_a, effort_noise_std=sigma_u, closed_loop_poles=np.zeros(0),
+        error_std=np.zeros(n),
         gain=L, covariance=M, riccati_residual=dare_residual(Ad.T, C.T, Qw, Rv, M),
     )
     return _with_loop(rig, design, est)
@@ -249,7 +282,7 @@ def finite_difference_estimator(rig: Rig, design: BalanceDesign, *, cutoff_hz: f
         F=F, G=G, H=np.zeros((2 * m, design.B.shape[1])), Cxi=Cxi, Dy=Dy, kind="finite-difference",
         sample_rate=rate, poles=np.linalg.eigvals(F).astype(complex), measured=measured, state_names=names,
         measurement_std=measurement_noise_std(rig), process_noise_std=process_noise_std(rig),
-        closed_loop_poles=np.zeros(0), error_std=np.zeros(n), cutoff_hz=fc,
+        effort_noise_std=effort_noise_std(rig), closed_loop_poles=np.zeros(0), error_std=np.zeros(n), cutoff_hz=fc,
     )
     return _with_loop(rig, design, est)
 
@@ -271,6 +304,14 @@ def design_estimator(rig: Rig, design: BalanceDesign, kind: str = "kalman") -> E
     raise RequestError(f"estimator must be one of {', '.join(KINDS)}; got {kind!r}")
 
 
+def kalman_setting(est: EstimatorDesign) -> str:
+    """The Kalman filter's tuning in words: process noise per coordinate, then effort noise per input when set."""
+    text = "process noise " + ", ".join(f"{v:g}" for v in est.process_noise_std)
+    if np.any(est.effort_noise_std > 0.0):
+        text += "; effort noise " + ", ".join(f"{v:g}" for v in est.effort_noise_std)
+    return text
+
+
 def _with_loop(rig: Rig, design: BalanceDesign, est: EstimatorDesign) -> EstimatorDesign:
     """Fill in the combined closed-loop poles and the closed-loop estimate error."""
     return replace(est, closed_loop_poles=lqg_poles(design, est), error_std=estimate_error_std(design, est))
@@ -279,8 +320,9 @@ def _with_loop(rig: Rig, design: BalanceDesign, est: EstimatorDesign) -> Estimat
 def estimate_error_std(design: BalanceDesign, est: EstimatorDesign) -> np.ndarray:
     """Steady-state standard deviation of x - x_hat with the loop closed through ``est`` and K_discrete.
 
-    With plant noise w (covariance diag(process_noise_std^2), entering through Gamma) and reading noise v
-    (diag(measurement_std^2)), the loop state s = [x, c] obeys s+ = A_cl s + N [w; v]; its covariance S solves
+    With plant noise w (accelerations of covariance diag(process_noise_std^2) entering through Gamma, and efforts
+    of covariance diag(effort_noise_std^2) entering through Bd) and reading noise v (diag(measurement_std^2)), the
+    loop state s = [x, c] obeys s+ = A_cl s + N [w; v]; its covariance S solves
     S = A_cl S A_cl' + N W N', and x - x_hat = (I - Dy C) x - Cxi xi - Dy v gives the error covariance
     E S E' + Dy V Dy'. Returns NaN entries when the loop is not stable (no steady state exists).
     """
@@ -291,9 +333,9 @@ def estimate_error_std(design: BalanceDesign, est: EstimatorDesign) -> np.ndarra
     n = plant.A.shape[0]
     if np.max(np.abs(np.linalg.eigvals(A))) >= 1.0:
         return np.full(n, np.nan)
-    Gamma = process_noise_input(design)
+    Gamma = np.hstack([process_noise_input(design), plant.B])
     N = np.block([[Gamma, plant.B @ ctrl.D], [np.zeros((ctrl.A.shape[0], Gamma.shape[1])), ctrl.B]])
-    W = np.diag(np.concatenate([est.process_noise_std**2, est.measurement_std**2]))
+    W = np.diag(np.concatenate([est.process_noise_std**2, est.effort_noise_std**2, est.measurement_std**2]))
     S = scipy.linalg.solve_discrete_lyapunov(A, N @ W @ N.T, method="bilinear")
     no = est.F.shape[0]
     Ce = np.hstack([np.eye(n) - est.Dy @ C, -est.Cxi, np.zeros((n, ctrl.A.shape[0] - no))])

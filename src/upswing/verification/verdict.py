@@ -311,5 +311,8 @@ def estimator_text(est: EstimatorDesign | None) -> str:
         return "exact state (ideal)"
     if est.kind == "kalman":
         noise = ", ".join(f"{v:g}" for v in est.process_noise_std)
-        return f"steady-state Kalman filter (process noise {noise} in coordinate order, rad/s^2 or m/s^2)"
+        text = f"steady-state Kalman filter (process noise {noise} in coordinate order, rad/s^2 or m/s^2"
+        if np.any(est.effort_noise_std > 0.0):
+            text += "; effort noise " + ", ".join(f"{v:g}" for v in est.effort_noise_std) + " in input order, N or N m"
+        return text + ")"
     return f"filtered finite difference (cut-off {est.cutoff_hz:g} Hz)"

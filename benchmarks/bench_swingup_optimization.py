@@ -36,6 +36,7 @@ from upswing.model.dynamics import model_for
 from upswing.model.equilibria import equilibrium_state
 from upswing.model.rig import load_rig
 from upswing.synthesis.swingup import default_duration, plan_swingup, size_motor
+from upswing.synthesis.swingup.sizing import FULL_LIMITS
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 
@@ -79,10 +80,12 @@ def sweep(rig, duration: float, minimum: float, count: int = 10) -> list[dict]:
     for multiple in np.geomspace(3.0, 1.1, count):
         limit = multiple * minimum
         started = time.perf_counter()
-        cold = plan_swingup(rig, duration=duration, intervals=100, peak=limit, strategies=("cold",))
+        # the limits the sizing planned to (full peak and max_speed): the sized minimum is reachable only there,
+        # not within the rig file's plan_speed_share
+        cold = plan_swingup(rig, duration=duration, intervals=100, peak=limit, strategies=("cold",), **FULL_LIMITS)
         cold_s = time.perf_counter() - started
         started = time.perf_counter()
-        auto = plan_swingup(rig, duration=duration, intervals=100, peak=limit)
+        auto = plan_swingup(rig, duration=duration, intervals=100, peak=limit, **FULL_LIMITS)
         auto_s = time.perf_counter() - started
         rows.append({"multiple": multiple, "limit": limit, "cold": cold.success,
                      "cold_status": cold.attempts[0].solver_status, "cold_s": cold_s, "auto": auto.success,
@@ -160,7 +163,7 @@ class SingleShooting:
 
 def baseline(rig, duration: float, limit: float, max_iterations: int) -> dict:
     wall, cpu = time.perf_counter(), time.process_time()
-    plan = plan_swingup(rig, duration=duration, peak=limit)
+    plan = plan_swingup(rig, duration=duration, peak=limit, **FULL_LIMITS)  # the baseline has no plan shares
     ours = {"wall": time.perf_counter() - wall, "cpu": time.process_time() - cpu, "success": plan.success,
             "strategy": plan.strategy}
     slsqp = SingleShooting(rig, duration, limit).solve(max_iterations)

@@ -167,8 +167,8 @@ def base_load_note(rig: Rig, budgets: tuple[Budget, ...], *, where: str = "in th
         "base loads",
         f"The mount must hold a force of {by['base.peak_force'].value:.3g} N (horizontal "
         f"{by['base.peak_force_x'].value:.3g} N, vertical {by['base.peak_force_y'].value:.3g} N incl. the weight) "
-        f"and a moment of {by['base.peak_moment'].value:.3g} N m at the shoulder{lever} {where}; a fall or a "
-        f"missed catch loads it more. {mount_judgement(rig, budgets)} Loads that reverse at every swing loosen "
-        "clamps and bolts: check the fixing before each session, and guard the zone so that a rig that comes loose "
-        "stays contained.",
+        f"and a moment of {by['base.peak_moment'].value:.3g} N m at the shoulder{lever} {where}; a fall, a "
+        f"runaway or a missed swing-up catch can load it more. {mount_judgement(rig, budgets)} Loads that reverse "
+        "at every swing loosen clamps and bolts: check the fixing before each session, and guard the zone so that a "
+        "rig that comes loose stays contained.",
         MOUNT_STANDARDS)

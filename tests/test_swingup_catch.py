@@ -127,3 +127,37 @@ def test_handover_hysteresis_and_log(tracked):
     assert list(mem[:, 1] > 0.5) == [True, True, False]
     assert ctrl.handover_time[0] == 0.0 and np.isnan(ctrl.handover_time[2])
     assert isinstance(rule, HandoverRule)
+
+
+def test_reference_aided_rate_estimate(tracked):
+    """While the table runs, rates are the reference's plus a first-order low-pass of the differenced error.
+
+    Reference (common practice, the discrete first-order low-pass y[k] = a y[k-1] + (1 - a) u[k] with
+    a = exp(-2 pi f_c / f_s)): readings that follow the reference exactly give the reference's rates with no lag
+    at all, and readings that drift off it at a constant rate c give x_ref rate + c (1 - a^k) after k samples.
+    """
+    rig, plan, table = tracked
+    balance = balance_controller(rig, measurement="encoders")
+    ctrl = CatchController(rig, tracking_law(table), balance, handover_rule(rig, 1e-12), table.end_time,
+                           reference=table)
+    x_eq = equilibrium_state(rig, "upright")
+    p = len([s for s in rig.state_names if not s.endswith("_dot")])
+    fs, fc = table.sample_rate, rig.swingup.tracking_rate_cutoff
+    a = math.exp(-2.0 * math.pi * fc / fs)
+    c = 0.3  # rad/s (m/s on the cart): the drift of the second rollout off the reference
+    y0 = np.array([table.x_ref[0, :p] - x_eq[:p]] * 2)
+    memory = ctrl.start(y0)
+    steps = int(0.2 * fs)  # 0.2 s: the swing is well under way, 25 filter time constants at 20 Hz
+    for k in range(1, steps + 1):
+        y = np.array([table.x_ref[k, :p], table.x_ref[k, :p] + c * k / fs]) - x_eq[:p]
+        _, memory = ctrl.step(k / fs, y, memory)  # memory columns: row id, mode, previous reading, rate state
+    rate_exact = memory[0, 2 + p:2 + 2 * p]
+    rate_drift = memory[1, 2 + p:2 + 2 * p]
+    # the stored state is the filtered error rate: exactly zero on the reference, c (1 - a^k) off it
+    np.testing.assert_allclose(rate_exact, 0.0, atol=1e-9)
+    np.testing.assert_allclose(rate_drift, c * (1.0 - a ** steps), rtol=1e-9)
+    # and the estimate handed to the law is the reference's rate plus that error rate (state-estimate contract)
+    k = steps
+    y = np.array([table.x_ref[k, :p]] * 2) - x_eq[:p]
+    est, _ = ctrl._estimate(k / fs, y, np.array([table.x_ref[k - 1, :p]] * 2) - x_eq[:p], np.zeros((2, p)))
+    np.testing.assert_allclose(est[:, p:], np.broadcast_to(table.x_ref[k, p:], (2, p)), atol=1e-9)

@@ -250,9 +250,15 @@ def test_headroom_keeps_the_plan_within_its_share_of_peak_and_max_speed(acrobot)
     # contract; leaving feedback authority is common practice), and still meet the equations of motion: the same
     # DOP853 re-integration check as the full-limit plan. The tightest limits are checked against the rig file's
     # own numbers, not the plan's stored limit, with the solver's bound slack (BOUND_SLACK, above).
-    rig, full = acrobot
+    rig, default = acrobot
+    # the default plan keeps to the rig file's [swingup].plan_speed_share of max_speed (0.9 unless given)
+    share = rig.swingup.plan_speed_share
+    assert share < 1.0
+    assert np.max(np.abs(default.x[:, rig.n_states // 2 + 1])) <= share * rig.actuator("elbow").max_speed * (
+        1 + BOUND_SLACK)
+    full = plan_swingup(rig, headroom=1.0, speed_headroom=1.0)
     headroom = 0.85
-    plan = plan_swingup(rig, headroom=headroom)
+    plan = plan_swingup(rig, headroom=headroom, speed_headroom=headroom)
     assert plan.success, plan.message
     np.testing.assert_allclose(plan.limit, headroom * rig.peak_inputs, rtol=1e-12)
     n_q = rig.n_states // 2
@@ -265,3 +271,5 @@ def test_headroom_keeps_the_plan_within_its_share_of_peak_and_max_speed(acrobot)
     _check_reintegration(rig, plan)
     with pytest.raises(RequestError, match="headroom"):
         plan_swingup(rig, headroom=1.5)
+    with pytest.raises(RequestError, match="speed_headroom"):
+        plan_swingup(rig, speed_headroom=0.0)

@@ -42,7 +42,9 @@ def test_constant_upright_reference_converges_to_balance_gain(name):
     n, m = rig.n_states, rig.n_inputs
     rate = rig.balance.sample_rate
     design = design_balance(rig, delay_samples=0)
-    Kd, _, _ = control.dlqr(design.Ad, design.Bd, design.Q, design.R)
+    # the table's default weights: the balance Q and [swingup].tracking_r_factor times the balance R
+    Kd, _, _ = control.dlqr(design.Ad, design.Bd, design.Q, rig.swingup.tracking_r_factor * design.R)
+    Kb, _, _ = control.dlqr(design.Ad, design.Bd, design.Q, design.R)
     # The error of P[k] shrinks like rho^(2 (N - k)) with rho the slowest closed-loop pole's modulus (0.991 on the
     # acrobot, 0.997 on the cart rig): choose N for a 1e-10 residual.
     rho = np.abs(design.closed_loop_poles_discrete).max()
@@ -51,9 +53,16 @@ def test_constant_upright_reference_converges_to_balance_gain(name):
                                P_terminal=np.zeros((n, n)))  # start from zero: convergence must do the work
     # 1e-6 relative: two orders above the 1e-10 geometric residual, which the gain's conditioning may amplify
     assert np.allclose(table.K[0], Kd, rtol=1e-6, atol=1e-9 * np.abs(Kd).max())
-    # With the balance cost-to-go as terminal cost the recursion sits at the fixed point from the first step.
-    exact = tvlqr_from_samples(rig, np.arange(5) / rate, np.zeros((5, n)), np.zeros((5, m)))
-    assert np.allclose(exact.K, np.broadcast_to(Kd, exact.K.shape), rtol=1e-7, atol=0)
+    # With the balance weights and the balance cost-to-go as terminal cost the recursion sits at the fixed point
+    # from the first step.
+    exact = tvlqr_from_samples(rig, np.arange(5) / rate, np.zeros((5, n)), np.zeros((5, m)), R=design.R)
+    assert np.allclose(exact.K, np.broadcast_to(Kb, exact.K.shape), rtol=1e-7, atol=0)
+    # With the softer tracking R the last row still ends on the balance cost-to-go: K[N-1] from P_balance
+    # (one Riccati step, Anderson & Moore 1990 eq. 2.4-8) lies between the soft and the balance gain.
+    soft = tvlqr_from_samples(rig, np.arange(5) / rate, np.zeros((5, n)), np.zeros((5, m)))
+    one_step = np.linalg.solve(rig.swingup.tracking_r_factor * design.R + design.Bd.T @ design.P_discrete @ design.Bd,
+                               design.Bd.T @ design.P_discrete @ design.Ad)
+    assert np.allclose(soft.K[-1], one_step, rtol=1e-9, atol=0)
 
 
 def test_batched_zero_order_hold_matches_plain_one():

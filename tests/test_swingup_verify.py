@@ -7,6 +7,7 @@ lower end is 0.944, at 44/64 it is 0.57; Wilson 1927), while the batch engine ne
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -14,7 +15,7 @@ import pytest
 from rigs import ROOT
 
 from upswing.errors import RequestError
-from upswing.model.rig import load_rig
+from upswing.model.rig import Uncertainty, load_rig
 from upswing.synthesis.swingup import plan_swingup
 from upswing.verification.manoeuvre import verify_swingup
 from upswing.verification.stats import wilson_interval
@@ -61,17 +62,30 @@ def test_cart_rig_tracked_swingup_is_caught_under_uncertainty(cart):
 
 def test_acrobot_tracked_swingup_success_rate(acrobot):
     rig, plan = acrobot
-    v = verify_swingup(rig, plan=plan, rollouts=ROLLOUTS, seed=1)
+    # 150 runs: the fewest for which a miss or two still lets the 95 % Wilson lower bound reach 0.95.
+    v = verify_swingup(rig, plan=plan, rollouts=150, seed=1)
     _common_checks(rig, v)
-    # Measured with the demo rig's +-15 % link inertias (uniform): 158 of 200 caught (seed 0); the misses follow
-    # link1.inertia (point-biserial r = 0.43): one elbow motor cannot pull the passive link back onto the
-    # reference once it drifts. The nominal plant is caught. The test states what the rig shows: the point
-    # estimate is at least one half and the Wilson interval excludes 0.95 (the tracked swing-up is NOT reliable
-    # on this rig under its declared uncertainty, and the verdict says so).
+    # Measured with the demo rig's measurement-grade spreads (mass 1 %, com 2 %, inertia 6 %, uniform): 300 of 300
+    # caught (seed 0), elbow speed at most 24.2 rad/s, RMS over the swing-up 0.51 N m. The test states: the
+    # nominal plant is caught, at least 98 % of the runs are, and the verdict is a pass.
     assert v.nominal.caught
-    assert v.success_rate >= 0.5
-    assert v.success_interval[1] < 0.95 and v.verdict == "fail"
-    assert any("success rate" in r for r in v.reasons)
+    assert v.success_rate >= 0.98
+    assert v.verdict == "pass", v.reasons
+
+
+def test_looser_spreads_cost_catch_rate_and_the_misses_name_the_parameter(acrobot):
+    # The same plan on the same rig, with the spreads of a loosely measured rig (com +-5 %, inertia +-15 %):
+    # measured 257 of 300 caught (seed 0); the misses follow link 2's centre of mass (r = -0.21, point-biserial).
+    # The verification must say so rather than pass, and name the parameter to measure better.
+    rig, plan = acrobot
+    loose = dataclasses.replace(rig, uncertainty=Uncertainty("uniform", (
+        ("link1.mass", 0.03), ("link1.com", 0.05), ("link1.inertia", 0.15), ("link2.mass", 0.03),
+        ("link2.com", 0.05), ("link2.inertia", 0.15))))
+    v = verify_swingup(loose, plan=plan, rollouts=150, seed=0)
+    assert 0.5 <= v.success_rate < 0.95
+    assert v.verdict == "fail" and any("success rate" in r for r in v.reasons)
+    top = v.correlations[0]
+    assert top.notable and top.parameter.endswith(".com")
 
 
 def test_handover_level_from_the_region_of_attraction_or_the_caller(cart):

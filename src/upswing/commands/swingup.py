@@ -139,6 +139,9 @@ def swingup_fields(v: SwingUpVerification) -> dict[str, Any]:
         "rollouts": v.rollouts,
         "seed": v.seed,
         "outcomes": v.outcomes,
+        "miss_correlations": [{"parameter": c.parameter, "r": c.r, "mean_deviation_missed": c.mean_deviation_failed,
+                               "mean_deviation_caught": c.mean_deviation_held, "notable": bool(c.notable)}
+                              for c in v.correlations],
         "handover_time": v.nominal.handover_time,
         "nominal": {"status": v.nominal.status, "caught": v.nominal.caught,
                     "handover_time": v.nominal.handover_time},
@@ -168,6 +171,15 @@ def _fmt(x: float, unit: str = "s") -> str:
     return "never" if x is None or not math.isfinite(x) else f"{x:.3f} {unit}"
 
 
+def _miss_lines(v: SwingUpVerification) -> list[str]:
+    notable = [c for c in v.correlations if c.notable]
+    if not notable:
+        return []
+    parts = [f"{c.parameter} (r = {c.r:+.2f}; missed runs {c.mean_deviation_failed:+.1%} on average, caught "
+             f"{c.mean_deviation_held:+.1%})" for c in notable[:3]]
+    return [f"the misses follow: {'; '.join(parts)}: measure these better first"]
+
+
 def swingup_text(rig: Rig, v: SwingUpVerification, folder: str | None) -> str:
     """The readable summary: plan, verdict, hand-over, budgets, hazard notes and cautions."""
     units = dict(zip(rig.input_names, rig.input_units, strict=True))
@@ -184,6 +196,7 @@ def swingup_text(rig: Rig, v: SwingUpVerification, folder: str | None) -> str:
         f"required {v.required_success:.0%})",
         *[f"  - {r}" for r in v.reasons],
         f"outcomes: {', '.join(f'{k}: {n}' for k, n in v.outcomes.items())}",
+        *_miss_lines(v),
         f"nominal run: {v.nominal.status}, hand-over at {_fmt(v.nominal.handover_time)}",
         f"hand-over: x'Px <= {v.rho_in:.4g} engages balance, above {v.rho_out:.4g} releases ({v.rho_source}); "
         f"times over caught rollouts: min {_fmt(v.handover_summary['min'])}, median "

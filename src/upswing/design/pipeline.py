@@ -310,8 +310,10 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
                 catch = success_margin("swing-up catch", check.decision.success_lower_bound, check.required_success)
                 margins.append(catch)
                 misses = ", ".join(f"{k}: {n}" for k, n in check.outcomes.items() if k != "caught and held")
+                follow = [c.parameter for c in check.correlations if c.notable][:3]
                 details[catch.name] = (f"{check.successes} of {check.rollouts} tracked swing-ups were caught and "
                                        f"held ({check.success_rate:.1%})" + (f"; missed: {misses}" if misses else "")
+                                       + (f"; the misses follow {', '.join(follow)}" if follow else "")
                                        + "; swingup_montecarlo.csv lists each run's parameters and outcome: the "
                                        "parameters the misses follow are the ones to measure better (narrowing "
                                        "[uncertainty]), or the swing-up needs more authority (motor, gear, time)")

@@ -56,6 +56,13 @@ CONVENTIONS_TEXT = ("theta1 from the upward vertical, theta2 relative to link 1,
                     "cart x positive to the right, 0 at the rail's centre; SI units")
 
 
+def rate_estimate_text(rig: Rig) -> str:
+    """How the verification estimated joint rates while the table ran: what the firmware should do too."""
+    return (f"the verification estimated rates as the reference rate of row k plus a first-order low-pass "
+            f"({rig.swingup.tracking_rate_cutoff:g} Hz) of the differenced tracking error (reading - x_ref, angles "
+            "wrapped); differencing raw readings lags the swing and needs its own verification")
+
+
 def gain_columns(table: TrackingTable) -> list[str]:
     """``K_<input>_<state>`` for every gain entry, in K's row-major order."""
     return [f"K_{u}_{s}" for u in table.input_names for s in table.state_names]
@@ -88,6 +95,7 @@ def swingup_header(rig: Rig, table: TrackingTable) -> ExportHeader:
         f"conventions: {CONVENTIONS_TEXT}",
         "units: t s; K_<input>_<state> in input unit per state unit",
         f"peak: {peaks}",
+        f"rates: {rate_estimate_text(rig)}",
     ]
     notes += [f"caution: {c}" for c in CAUTIONS if c != GOVERNING]
     return export_header(rig, "swing-up table (time-varying LQR along the reference)", notes=notes)
@@ -119,6 +127,7 @@ def json_object(rig: Rig, table: TrackingTable) -> dict[str, Any]:
         "export_header": header_json(swingup_header(rig, table)),
         "law": LAW_TEXT,
         "conventions": CONVENTIONS_TEXT,
+        "rate_estimate": rate_estimate_text(rig),
         "sample_rate": table.sample_rate,
         "rows": table.n_rows,
         "end_time": table.end_time,

@@ -155,6 +155,12 @@ class SwingUpSettings:
         rho_in of the hand-over rule [-] (cost-to-go level).
     release_factor : float
         rho_out / rho_in [-].
+    plan_effort_share, plan_speed_share : float
+        Shares of peak (and motor line) and of max_speed the optimized trajectory may use [-].
+    tracking_r_factor : float
+        Tracking input weight as a multiple of the balance design's R [-].
+    tracking_rate_cutoff : float
+        Cut-off of the tracking rate estimate's error filter [Hz].
     """
 
     energy_gain: float | None = None
@@ -168,6 +174,10 @@ class SwingUpSettings:
     energy_margin: float = 0.01
     handover_level: float | None = None
     release_factor: float = 1.5
+    plan_effort_share: float = schema.SWINGUP.key("plan_effort_share").default
+    plan_speed_share: float = schema.SWINGUP.key("plan_speed_share").default
+    tracking_r_factor: float = schema.SWINGUP.key("tracking_r_factor").default
+    tracking_rate_cutoff: float = schema.SWINGUP.key("tracking_rate_cutoff").default
 
 
 @dataclass(frozen=True)

@@ -229,7 +229,8 @@ VERIFICATION = Table(
 
 SWINGUP = Table(
     "swingup",
-    "Energy-based swing-up and the hand-over to the balance controller (see upswing.synthesis.swingup.energy). "
+    "Swing-up: the optimized trajectory's share of the limits and its tracking, the energy-based laws (see "
+    "upswing.synthesis.swingup.energy) and the hand-over to the balance controller. "
     "Keys a family's law does not use are an error; keys left out take the documented default, which for the "
     "collocated-loop gains depends on the family.",
     (
@@ -260,6 +261,19 @@ SWINGUP = Table(
             "the region-of-attraction estimate.", default=None, low=0.0, low_open=True),
         Key("release_factor", "float", "-", "Hysteresis: give control back to the swing-up law only above "
             "rho_out = release_factor * rho_in.", default=1.5, low=1.0, low_open=True, high=100.0),
+        Key("plan_effort_share", "float", "-", "Share of each actuator's peak (and motor line) the optimized "
+            "trajectory may use; the rest is left to the tracking feedback. Motor sizing always plans to the full "
+            "limit.", default=1.0, low=0.0, low_open=True, high=1.0, plausible=(0.5, 1.0)),
+        Key("plan_speed_share", "float", "-", "Share of each actuator's max_speed the optimized trajectory may "
+            "use: a tracked run on an uncertain rig overshoots its plan's speeds by a few per cent.", default=0.9,
+            low=0.0, low_open=True, high=1.0, plausible=(0.5, 1.0)),
+        Key("tracking_r_factor", "float", "-", "The time-varying LQR's input weight as a multiple of the balance "
+            "design's R (same Q): above 1 the tracking gains stay small enough that encoder steps and noise do not "
+            "drive the command into saturation; the table still ends on the balance cost-to-go.", default=10.0,
+            low=0.0, low_open=True, high=1e4, plausible=(1.0, 1000.0)),
+        Key("tracking_rate_cutoff", "float", "Hz", "Cut-off of the rate estimate while tracking: joint rates are "
+            "the reference's rates plus a first-order low-pass of the differenced tracking error (below half the "
+            "loop rate).", default=20.0, low=0.0, low_open=True, plausible=(2.0, 200.0)),
     ),
 )
 
@@ -303,8 +317,9 @@ TOP_LEVEL_TABLES: tuple[str, ...] = ("link1", "link2", "cart", "actuator", "bala
                                      "verification", "swingup", "mount")
 
 # Which [swingup] keys each family reads; the loader rejects the others (a gain that silently does nothing is worse
-# than an error). Families without an energy law (fully actuated, custom) read only the hand-over keys.
-SWINGUP_KEYS_BY_FAMILY: dict[str, tuple[str, ...]] = {
+# than an error). Families without an energy law (fully actuated, custom) read only the hand-over keys and, like
+# every family, the keys of the optimized swing-up and its tracking.
+_ENERGY_AND_HANDOVER_KEYS: dict[str, tuple[str, ...]] = {
     "acrobot": ("energy_gain", "collocated_kp", "collocated_kd", "energy_deadband", "energy_margin",
                 "handover_level", "release_factor"),
     "pendubot": ("energy_gain", "collocated_kp", "collocated_kd", "energy_deadband", "energy_margin",
@@ -313,4 +328,8 @@ SWINGUP_KEYS_BY_FAMILY: dict[str, tuple[str, ...]] = {
              "release_factor"),
     "fully actuated": ("handover_level", "release_factor"),
     "custom": ("handover_level", "release_factor"),
+}
+TRACKING_KEYS: tuple[str, ...] = ("plan_effort_share", "plan_speed_share", "tracking_r_factor", "tracking_rate_cutoff")
+SWINGUP_KEYS_BY_FAMILY: dict[str, tuple[str, ...]] = {
+    family: keys + TRACKING_KEYS for family, keys in _ENERGY_AND_HANDOVER_KEYS.items()
 }

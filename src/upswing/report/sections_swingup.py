@@ -56,6 +56,14 @@ def verified_blocks(rig: Rig, check) -> list:
               "How the tracked swing-ups ended ('caught and held': the balance loop engaged and held the links in "
               "the settling box for the final second)."),
     ]
+    notable = [c for c in getattr(check, "correlations", ()) if c.notable]
+    if notable:
+        blocks.append(Table(
+            ("parameter", "correlation r", "mean deviation, missed", "mean deviation, caught"),
+            tuple((c.parameter, f"{c.r:+.2f}", f"{100 * c.mean_deviation_failed:+.1f} %",
+                   f"{100 * c.mean_deviation_held:+.1f} %") for c in notable),
+            "Parameters the missed catches follow (point-biserial correlation; |r| above 2/sqrt(N) is unlikely by "
+            "chance): measure these better first."))
     caught = check.handover_times[check.caught] if check.caught is not None else check.handover_times
     if np.isfinite(caught).any():
         blocks.append(figure_image(

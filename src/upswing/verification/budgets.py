@@ -91,8 +91,13 @@ def compute_budgets(rig: Rig, results: Rollouts, horizon: float, hold_s: float =
         unit = "N" if a.joint == "cart" else "N m"
         out.append(_line(f"{a.joint}.peak_effort", results.peak_input[:, j], a.peak, unit,
                          "largest applied effort (the actuator clamps at peak)"))
-        out.append(_line(f"{a.joint}.rms_effort", results.rms_input[:, j], a.continuous, unit,
-                         "RMS of the applied effort over the run, against the continuous rating"))
+        if results.rms_input_window is None:
+            out.append(_line(f"{a.joint}.rms_effort", results.rms_input[:, j], a.continuous, unit,
+                             "RMS of the applied effort over the run, against the continuous rating"))
+        else:
+            out.append(_line(f"{a.joint}.rms_effort", results.rms_input_window[:, j], a.continuous, unit,
+                             "RMS of the applied effort over the swing-up (to the table's end), against the "
+                             "continuous rating"))
         out.append(_line(f"{a.joint}.saturation_time", results.saturated_time[:, j], SATURATION_SHARE * horizon, "s",
                          "time the command was at or beyond the available effort"))
     for j, joint in enumerate(coordinates):

@@ -48,7 +48,13 @@ from upswing.synthesis.swingup.tracking import TrackingTable, handover_rule, tvl
 from upswing.verification.budgets import Budget, compute_budgets
 from upswing.verification.controllers import MEASUREMENTS, balance_controller
 from upswing.verification.hazards import HazardNote, hazard_notes
-from upswing.verification.montecarlo import InitialOffsets, sample_offsets, sample_parameters
+from upswing.verification.montecarlo import (
+    Correlation,
+    InitialOffsets,
+    failure_correlations,
+    sample_offsets,
+    sample_parameters,
+)
 from upswing.verification.roa import estimate_region
 from upswing.verification.simulate import STATUS, Bounds, Rollouts, SimulationSetup, simulate
 from upswing.verification.stats import wilson_interval
@@ -63,7 +69,7 @@ ENERGY_KICK = 0.05  # rad, the energy law's nominal start offset from hanging (t
 # Rate filter of the energy laws on encoders [Hz]. Measured on the demo acrobot (rho_in = 2000, 16 rollouts, 25 s):
 # at the default sample_rate / 10 = 50 Hz the one-count steps of a 4096-count encoder, differentiated at 500 Hz, drown
 # the slow small swings the law must pump, friction wins and nothing is caught (0 of 16); at 20 Hz 6 of 16 are
-# caught. Tracking keeps the default: at 20 Hz its lag dropped the acrobot's catch rate from 0.79 to 0.11.
+# caught. Tracking estimates rates reference-aided instead (upswing.verification.swingup_control).
 ENERGY_RATE_CUTOFF = 20.0
 ENERGY_HORIZON = 25.0  # s: the demo acrobot's energy law caught at up to ~23 s (benchmarks/energy_swingup.py: 9-19 s)
 CHUNK = 128
@@ -150,6 +156,9 @@ class SwingUpVerification:
     cautions : tuple of str
     caught : ndarray of bool (rollouts,)
         Per rollout, caught and held (the success definition of the module docstring).
+    correlations : tuple of Correlation
+        How the misses follow each uncertain parameter, strongest first (empty when none or all were caught):
+        the number to measure better when the catch rate falls short.
     """
 
     method: str
@@ -182,6 +191,7 @@ class SwingUpVerification:
     total_s: float
     cautions: tuple[str, ...] = SWINGUP_CAUTIONS
     caught: np.ndarray | None = None
+    correlations: tuple[Correlation, ...] = ()
 
     def outcome_of(self, i: int) -> str:
         """How rollout ``i`` ended, in the words of ``outcomes``."""
@@ -272,7 +282,10 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
         # nominal run starts ENERGY_KICK off it along theta1, as a firmware's small initial kick would.
         start_state = equilibrium_state(rig, "hanging") + ENERGY_KICK * (np.array(rig.state_names) == "theta1")
 
-    setup = SimulationSetup(horizon=horizon_s, delay_samples=design.delay_samples, bounds=Bounds(angle=None))
+    # The RMS effort of a tracked swing-up is taken over the table (the manoeuvre), not diluted by the settling
+    # time after it: a conservative stand-in for the motor's thermal load, whose time constant is longer.
+    setup = SimulationSetup(horizon=horizon_s, delay_samples=design.delay_samples, bounds=Bounds(angle=None),
+                            rms_until=None if table is None else table.end_time)
     level = rig.swingup.handover_level if handover_level is None else float(handover_level)
     if level is not None:
         source = ("[swingup].handover_level of the rig file" if handover_level is None
@@ -289,7 +302,7 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
                   f"(rho = {region.rho:.4g} from {region.samples} held starts)")
     rule = handover_rule(rig, level)
     controller = CatchController(rig, law, balance, rule, None if table is None else table.end_time,
-                                 rate_cutoff=ENERGY_RATE_CUTOFF if method == "energy" else None)
+                                 rate_cutoff=ENERGY_RATE_CUTOFF if method == "energy" else None, reference=table)
 
     # --- nominal run -------------------------------------------------------------------------------------------
     nominal = simulate(rig, controller, start_state[None, :], setup=SimulationSetup(
@@ -344,7 +357,8 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
         outcomes=outcomes, handover_times=handover_times, handover_summary=summary, budgets=budgets,
         hazards=hazards, verdict=decision.verdict, reasons=decision.reasons, decision=decision,
         required_success=required, results=results, parameters=P, simulate_s=simulate_s,
-        total_s=time.perf_counter() - start_clock, caught=caught)
+        total_s=time.perf_counter() - start_clock, caught=caught,
+        correlations=failure_correlations(rig, results, P, failed=~caught))
 
 
 def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float,

@@ -176,9 +176,12 @@ def sample_offsets(rig: Rig, n: int, offsets: InitialOffsets, rng: np.random.Gen
     return rng.uniform(-1.0, 1.0, (n, rig.n_states)) * offsets.half_widths(rig)
 
 
-def failure_correlations(rig: Rig, results: Rollouts, P: np.ndarray) -> tuple[Correlation, ...]:
-    """Point-biserial correlation of failure with each uncertain parameter's relative deviation, strongest first."""
-    failed = ~results.held
+def failure_correlations(rig: Rig, results: Rollouts, P: np.ndarray,
+                         failed: np.ndarray | None = None) -> tuple[Correlation, ...]:
+    """Point-biserial correlation of failure with each uncertain parameter's relative deviation, strongest first.
+
+    ``failed`` (bool, one per rollout) overrides what counts as a failure (default: not held)."""
+    failed = ~results.held if failed is None else np.asarray(failed, dtype=bool)
     n = failed.size
     if failed.all() or not failed.any():
         return ()

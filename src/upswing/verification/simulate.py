@@ -106,6 +106,9 @@ class SimulationSetup:
     bounds, settling : Bounds, Settling
     record : bool
         Keep every sample's state and applied input (for plots and tests; memory grows with N * horizon).
+    rms_until : float or None
+        Also take the RMS of the applied input over [0, rms_until] s (:attr:`Rollouts.rms_input_window`): a
+        swing-up's effort over the manoeuvre itself, which the settling time after it would dilute.
     backend : str
         ``"auto"``, ``"numba"`` or ``"numpy"`` (:mod:`upswing.verification.kernels`).
     """
@@ -119,6 +122,7 @@ class SimulationSetup:
     bounds: Bounds = field(default_factory=Bounds)
     settling: Settling = field(default_factory=Settling)
     record: bool = False
+    rms_until: float | None = None
     backend: str = "auto"
 
 
@@ -156,6 +160,8 @@ class Rollouts:
     times, states, inputs : ndarray or None
         With ``record``: sample times (K + 1,), states (K + 1, N, n_states) and applied inputs (K, N, n_inputs);
         rows after a rollout's end repeat its last values.
+    rms_input_window : ndarray (N, n_inputs) or None
+        With ``SimulationSetup.rms_until``: RMS of applied u over [0, rms_until] (over the run if it ended first).
     """
 
     ids: np.ndarray
@@ -177,6 +183,7 @@ class Rollouts:
     times: np.ndarray | None = None
     states: np.ndarray | None = None
     inputs: np.ndarray | None = None
+    rms_input_window: np.ndarray | None = None
 
     @property
     def held(self) -> np.ndarray:
@@ -191,6 +198,8 @@ class Rollouts:
                 out[f.name] = value
             elif f.name in ("states", "inputs"):
                 out[f.name] = None if value is None else value[:, rows]
+            elif value is None:
+                out[f.name] = None
             else:
                 out[f.name] = value[rows]
         return Rollouts(**out)
@@ -205,7 +214,7 @@ class Rollouts:
             first = getattr(parts[0], f.name)
             if f.name in ("substeps", "step"):
                 out[f.name] = first
-            elif f.name in ("times", "states", "inputs"):
+            elif f.name in ("times", "states", "inputs") or first is None:
                 out[f.name] = None
             else:
                 out[f.name] = np.concatenate([getattr(p, f.name) for p in parts])
@@ -328,6 +337,9 @@ def simulate(rig: Rig, controller: Controller, x0: np.ndarray, params: np.ndarra
     out_end = np.full(N, horizon)
     out_final = np.zeros((n, N))
     noise_block = np.empty((n_meas, N))
+    # RMS window: the sum of u^2 (rows 2, 6, ... of acc_u) is copied once the window's last sample has run
+    k_window = None if setup.rms_until is None else min(max(1, int(round(setup.rms_until / Ts))), n_samples)
+    window_sum = np.full((m, N), np.nan)
     if setup.record:
         rec_x = np.empty((n_samples + 1, N, n))
         rec_u = np.zeros((n_samples, N, m))
@@ -372,6 +384,8 @@ def simulate(rig: Rig, controller: Controller, x0: np.ndarray, params: np.ndarra
         if setup.record:
             rec_u[k, pos] = T[joint].T
         kernels.advance(S, T, C, h, nsub, Mon, backend, work)
+        if k_window is not None and k == k_window - 1:
+            window_sum[:, pos] = acc_u[2::4]
         failed = sampling.check(S, Mon, x_eq, is_angle, cart, travel, angle_bound, speed_bound, box, t + Ts,
                                 hold_from, acc_x, status, compiled)
         if setup.record:
@@ -405,6 +419,11 @@ def simulate(rig: Rig, controller: Controller, x0: np.ndarray, params: np.ndarra
     out_status = np.where(held & (last_out > hold_from), NOT_SETTLED, out_status).astype(np.int8)
     samples_run = np.maximum(np.rint(out_end / Ts), 1.0)
     U4 = out_u.reshape(m, 4, N)
+    rms_window = None
+    if k_window is not None:
+        early = np.isnan(window_sum)  # rollouts that ended before the window did: their whole run
+        window_sum[early] = U4[:, 2][early]
+        rms_window = np.sqrt(window_sum / np.minimum(samples_run, k_window)).T
     return Rollouts(
         ids=ids, status=out_status, end_time=out_end, settle_time=last_out, final_error=out_final.T,
         peak_input=U4[:, 0].T, rms_input=np.sqrt(U4[:, 2] / samples_run).T, peak_request=U4[:, 1].T,
@@ -412,4 +431,5 @@ def simulate(rig: Rig, controller: Controller, x0: np.ndarray, params: np.ndarra
         peak_monitors=out_x[nq + 1:nq + 6].T, peak_force=out_x[nq + 6], hold_error=out_x[nq + 8:].T,
         substeps=nsub, step=h,
         times=np.arange(n_samples + 1) * Ts if setup.record else None,
-        states=rec_x if setup.record else None, inputs=rec_u if setup.record else None)
+        states=rec_x if setup.record else None, inputs=rec_u if setup.record else None,
+        rms_input_window=rms_window)

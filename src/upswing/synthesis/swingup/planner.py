@@ -68,7 +68,8 @@ def plan_swingup(
     max_wall_time: float = 10.0,
     time_effort_weight: float = 1e-2,
     ipopt_options: dict | None = None,
-    headroom: float = 1.0,
+    headroom: float | None = None,
+    speed_headroom: float | None = None,
 ) -> SwingUpPlan:
     """Optimize a swing-up from ``start`` to ``upright`` at rest by direct collocation with IPOPT.
 
@@ -121,15 +122,17 @@ def plan_swingup(
         Effort weight in minimum time [-].
     ipopt_options : dict, optional
         Extra IPOPT options.
-    headroom : float
-        Fraction in (0, 1] of the input limit (``peak`` or the rig's, and the motor line with it) and of every
-        ``max_speed`` the plan may use. Below 1 it leaves the tracking feedback effort and speed of its own: a
-        tracked run on an uncertain rig departs from the plan, and a plan that rides the limits leaves the feedback
-        nothing to correct with (common practice). Default 1: plan to the limits, as motor sizing needs. Measured on
-        the demo acrobot (200 tracked runs, seed 0): 0.85 kept the tracked elbow speed within max_speed (24.0
-        against 27.5 rad/s at 1) but raised the RMS effort (0.91 against 0.81 N m) and did not raise the catch rate
-        (0.76 against 0.79), so the design run keeps 1 there.
-
+    headroom : float, optional
+        Fraction in (0, 1] of the input limit (``peak`` or the rig's, and the motor line with it) the plan may
+        use; default the rig file's ``[swingup].plan_effort_share`` (1). Below 1 it leaves the tracking feedback
+        effort of its own. Measured on the demo acrobot (200 tracked runs, seed 0, session-1 tracking): 0.85 raised
+        the RMS effort (0.91 against 0.81 N m) and did not raise the catch rate (0.76 against 0.79).
+    speed_headroom : float, optional
+        Fraction in (0, 1] of every actuated joint's ``max_speed`` the plan may use; default the rig file's
+        ``[swingup].plan_speed_share`` (0.9). A tracked run on an uncertain rig departs from its plan and
+        overshoots the planned speeds by a few per cent (demo acrobot: 26.5 to 27 rad/s against a plan at its
+        26 rad/s bound), so a plan that rides max_speed leaves the tracked run over it (common practice: keep a
+        margin between the planned and the rated speed). Motor sizing plans to the full limits (1 and 1).
     Returns
     -------
     SwingUpPlan
@@ -147,7 +150,10 @@ def plan_swingup(
                               travel_margin=travel_margin, coulomb_smoothing=coulomb_smoothing,
                               mesh_tolerance=mesh_tolerance, max_iterations=max_iterations,
                               max_wall_time=max_wall_time, time_effort_weight=time_effort_weight,
-                              ipopt_options=ipopt_options, headroom=headroom)
+                              ipopt_options=ipopt_options,
+                              headroom=rig.swingup.plan_effort_share if headroom is None else headroom,
+                              speed_headroom=rig.swingup.plan_speed_share if speed_headroom is None
+                              else speed_headroom)
     unknown = [s for s in strategies if s not in STRATEGIES]
     if unknown or not strategies:
         raise RequestError(f"strategies must be a non-empty subset of {', '.join(STRATEGIES)}; got {list(strategies)}")

@@ -113,7 +113,7 @@ class Problem:
     def create(cls, rig: Rig, *, scheme: str, intervals: int, start: str | np.ndarray, peak, duration: float | None,
                travel_margin: float, coulomb_smoothing: float, mesh_tolerance: float | None, max_iterations: int,
                max_wall_time: float, time_effort_weight: float, ipopt_options: dict | None,
-               headroom: float = 1.0) -> Problem:
+               headroom: float = 1.0, speed_headroom: float = 1.0) -> Problem:
         if scheme not in SCHEMES:
             raise RequestError(f"scheme must be one of {', '.join(SCHEMES)}; got {scheme!r}")
         if not isinstance(intervals, int | np.integer) or intervals < 4:
@@ -128,8 +128,10 @@ class Problem:
         if coulomb_smoothing <= 0:
             raise RequestError(f"coulomb_smoothing must be > 0 rad/s (the optimizer needs a smooth friction law); "
                                f"got {coulomb_smoothing}")
-        if not (isinstance(headroom, int | float | np.floating) and 0.0 < headroom <= 1.0):
-            raise RequestError(f"headroom must be a fraction in (0, 1] of peak and max_speed; got {headroom!r}")
+        for name, share in (("headroom", headroom), ("speed_headroom", speed_headroom)):
+            if isinstance(share, bool) or not (isinstance(share, int | float | np.floating) and 0.0 < share <= 1.0):
+                raise RequestError(f"{name} must be a fraction in (0, 1] of the "
+                                   f"{'peak' if name == 'headroom' else 'max_speed'}; got {share!r}")
         model, dynamics = _compact(rig, float(coulomb_smoothing))
         limit = float(headroom) * _limit(rig, peak)
         stall = np.array([0.0 if a.stall is None else a.stall * limit[i] / a.peak
@@ -162,7 +164,7 @@ class Problem:
                    stall=stall, duration=float(duration), speed_index=speed_index, travel=travel,
                    mesh_tolerance=float(mesh_tolerance), max_iterations=int(max_iterations),
                    max_wall_time=float(max_wall_time), time_effort_weight=float(time_effort_weight),
-                   ipopt_options=ipopt_options, speed_headroom=float(headroom))
+                   ipopt_options=ipopt_options, speed_headroom=float(speed_headroom))
 
     def layout(self, minimum_time: bool) -> Layout:
         rig = self.rig

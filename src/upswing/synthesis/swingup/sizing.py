@@ -101,6 +101,10 @@ class TradeoffCurve:
     cautions: tuple[str, ...] = field(default=PLAN_CAUTIONS)
 
 
+# Sizing plans to the full peak and max_speed (not the rig file's plan shares): it answers what the limits admit.
+FULL_LIMITS = {"headroom": 1.0, "speed_headroom": 1.0}
+
+
 def used_factor(plan: SwingUpPlan, rig: Rig) -> float:
     """The smallest factor on ``peak`` whose limits (and scaled motor lines) the plan's nodes and midpoints respect.
 
@@ -160,6 +164,7 @@ def size_motor(rig: Rig, *, duration: float, scheme: str = "hermite-simpson", in
     if max_factor <= 0:
         raise RequestError(f"max_factor must be > 0; got {max_factor}")
     _check_options(plan_options, ("duration", "peak", "initial_plan", "strategies", "minimum_time"))
+    plan_options = {**FULL_LIMITS, **plan_options}  # sizing asks what the limits admit: plan to them
     peaks = rig.peak_inputs
     trials: list[Trial] = []
 
@@ -240,6 +245,7 @@ def tradeoff_curve(rig: Rig, limits: Sequence[float] | np.ndarray, *, scheme: st
     TradeoffCurve
     """
     _check_options(plan_options, ("peak", "initial_plan", "minimum_time"))
+    plan_options = {**FULL_LIMITS, **plan_options}  # sizing asks what the limits admit: plan to them
     table = np.asarray(limits, dtype=float)
     if table.ndim == 1:
         table = np.repeat(table[:, None], rig.n_inputs, axis=1)

@@ -165,6 +165,8 @@ VIOLATIONS: dict[tuple[str, str], list[tuple[dict[str, Any], str]]] = {
     ("balance", "velocity_cutoff"): [(_set("balance.velocity_cutoff", 250.0), "balance.velocity_cutoff")],
     ("balance", "cart_process_noise"): [(_set("balance.cart_process_noise", 1.0), "balance.cart_process_noise")],
     ("uncertainty", ""): [(_set("uncertainty.cart", {"mass": 0.1}), "uncertainty.cart")],
+    ("mount", ""): [(_set("mount", {"safety_factor": 2.0, "shoulder_height": 0.3}), "mount"),
+                    (_set("mount", {"moment": 40.0}), "mount.safety_factor")],
 }
 
 

@@ -6,16 +6,8 @@ import pytest
 from report_testkit import budget
 
 from upswing.errors import RequestError
-from upswing.report.verdict import (
-    Margin,
-    Verdict,
-    budgets_from_records,
-    rated,
-    smallest_margin,
-    tightest_budget,
-    usage,
-    verdict_from,
-)
+from upswing.report.verdict import Margin, Verdict, budgets_from_records, smallest_margin, verdict_from
+from upswing.verification.budgets import rated, tightest_budget, usage
 
 BUDGETS = [budget("peak torque", 1.5, 1.9, "N m", True), budget("rail", 0.38, 0.41, "m", True),
            budget("RMS torque", 0.6, 0.75, "N m", True), budget("tip speed", 9.0, None, "m/s", None)]

@@ -89,6 +89,24 @@ BAD_INPUTS = [
      "(0, 1)"),
     ("required success typo", edit("verification.required_sucess", 0.9), "verification.required_sucess",
      'did you mean "required_success"'),
+    ("mount as number", edit("mount", 400.0), "mount", "must be a table"),
+    ("mount without a rating", edit("mount", {"safety_factor": 2.0}), "mount", "at least one rating"),
+    ("mount without safety factor", edit("mount", {"moment": 40.0}), "mount.safety_factor", "is missing"),
+    ("safety factor below one", edit("mount", {"moment": 40.0, "safety_factor": 0.5}), "mount.safety_factor",
+     "[1, 20]"),
+    ("safety factor huge", edit("mount", {"moment": 40.0, "safety_factor": 25.0}), "mount.safety_factor",
+     "[1, 20]"),
+    ("zero horizontal rating", edit("mount", {"horizontal_force": 0.0, "safety_factor": 2.0}),
+     "mount.horizontal_force", "(0, inf) N"),
+    ("negative vertical rating", edit("mount", {"vertical_force": -300.0, "safety_factor": 2.0}),
+     "mount.vertical_force", "(0, inf) N"),
+    ("moment as text", edit("mount", {"moment": "40 Nm", "safety_factor": 2.0}), "mount.moment",
+     "must be a number in (0, inf) N m"),
+    ("moment nan", edit("mount", {"moment": math.nan, "safety_factor": 2.0}), "mount.moment", "finite"),
+    ("negative lever arm", edit("mount", {"moment": 40.0, "safety_factor": 2.0, "shoulder_height": -0.2}),
+     "mount.shoulder_height", "[0, inf) m"),
+    ("mount key typo", edit("mount", {"moment": 40.0, "safety_factor": 2.0, "sholder_offset": 0.1}),
+     "mount.sholder_offset", 'did you mean "shoulder_offset"'),
 ]
 
 
@@ -107,6 +125,22 @@ def test_verification_settings_default_and_load():
     assert rig_from_table(edit("verification.required_success", 0.99)).verification.required_success == 0.99
     assert any("verification.required_success" in w for w in
                rig_from_table(edit("verification.required_success", 0.2)).warnings)
+
+
+def test_mount_ratings_load_and_their_limits_are_rating_over_safety_factor():
+    rig = rig_from_table(edit("mount", {"horizontal_force": 450.0, "moment": 120.0, "safety_factor": 3.0,
+                                        "shoulder_height": 0.4}), source="bench.toml")
+    assert rig.mount.limit("horizontal_force") == pytest.approx(150.0)
+    assert rig.mount.limit("moment") == pytest.approx(40.0)
+    assert rig.mount.limit("vertical_force") is None  # not rated: reported, not judged
+    assert rig.mount.shoulder_height == 0.4 and rig.mount.shoulder_offset == 0.0
+    assert rig.warnings == ()
+    assert rig_from_table(valid_table()).mount is None  # [mount] is optional
+    # A factor above the usual bench range and a rating in millinewtons are accepted with a warning.
+    odd = rig_from_table(edit("mount", {"moment": 120.0, "safety_factor": 12.0, "horizontal_force": 450000.0}),
+                         source="bench.toml")
+    assert any("mount.safety_factor" in w for w in odd.warnings)
+    assert any("mount.horizontal_force" in w for w in odd.warnings)
 
 
 def test_the_valid_table_loads():
@@ -206,9 +240,10 @@ def mutated_tables(draw):
     table = random_rig_table(np.random.default_rng(draw(st.integers(0, 2**16))),
                              draw(st.sampled_from(["acrobot", "pendubot", "cart", "fully actuated"])))
     for _ in range(draw(st.integers(0, 3))):
-        section = draw(st.sampled_from(["", "link1", "link2", "cart", "balance", "sensors", "actuator"]))
+        section = draw(st.sampled_from(["", "link1", "link2", "cart", "balance", "sensors", "actuator", "mount"]))
         key = draw(st.sampled_from(["mass", "length", "com", "inertia", "damping", "travel", "q", "r",
-                                    "sample_rate", "base", "actuated", "encoder_counts", "peak", "bogus"]))
+                                    "sample_rate", "base", "actuated", "encoder_counts", "peak", "bogus",
+                                    "moment", "safety_factor", "shoulder_height"]))
         value = draw(values)
         if value is None:
             continue

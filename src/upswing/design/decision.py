@@ -9,9 +9,10 @@ Rule (:data:`DESIGN_RULE`):
 * **power** otherwise: every stage ran and every budget and margin is met (and then only at reduced limits first,
   with the cautions).
 
-What limits the verdict is the rated budget with the highest share of its limit (peak-effort lines excluded: the
-actuator clamps the applied effort at its peak, so reaching 100 % there is saturation, judged by the time spent
-saturated) and the margin with the lowest ratio to its requirement.
+What limits the verdict is the rated budget with the highest share of its limit
+(:func:`upswing.verification.budgets.tightest_budget`: peak-effort lines excluded, since the actuator clamps the
+applied effort at its peak, so reaching 100 % there is saturation, judged by the time spent saturated) and the
+margin with the lowest ratio to its requirement.
 
 The margins a design run judges (:func:`loop_margins`, :func:`success_margin`):
 
@@ -32,9 +33,9 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
-from upswing.report.verdict import Margin, Verdict, smallest_margin, tightest_budget
+from upswing.report.verdict import Margin, Verdict, smallest_margin
 from upswing.synthesis.margins import DELAY_MARGIN_MIN_SAMPLES, MarginReport
-from upswing.verification.budgets import Budget
+from upswing.verification.budgets import Budget, tightest_budget
 
 GAIN_FACTOR_MIN = 2.0  # 6 dB each way (common practice for a loop that must tolerate actuator and model error)
 PHASE_MARGIN_MIN_DEG = 30.0  # common practice: 30 to 60 deg; the lower end, the estimator's lag included
@@ -107,11 +108,6 @@ def _unit(unit: str) -> str:
     return "" if unit in ("", "-") else f" {unit}"
 
 
-def ranked_budgets(budgets: Sequence[Budget]) -> tuple[Budget, ...]:
-    """The budgets that compete for "tightest": all rated ones but the clamped peak-effort lines."""
-    return tuple(b for b in budgets if b.limit is not None and not b.name.endswith(".peak_effort"))
-
-
 def decide(stages: Sequence[StageRecord], budgets: Sequence[Budget], margins: Sequence[Margin], *,
            details: Mapping[str, str] | None = None, unchecked: Sequence[tuple[str, str]] = ()) -> Verdict:
     """Apply :data:`DESIGN_RULE`.
@@ -152,7 +148,7 @@ def decide(stages: Sequence[StageRecord], budgets: Sequence[Budget], margins: Se
             text = f"{m.name} = {_number(m.value)}{_unit(m.unit)}, below the required {_number(m.required)}" \
                    f"{_unit(m.unit)}"
             reasons.append(text + (f"; {details[m.name]}" if m.name in details else ""))
-    tight, small = tightest_budget(ranked_budgets(budgets)), smallest_margin(margins)
+    tight, small = tightest_budget(budgets), smallest_margin(margins)
     # Failures first, then what did not run.
     reasons.sort(key=lambda r: any(w in r for w in (" stage is missing", " stage was skipped", " is unchecked: ")))
     if failed:

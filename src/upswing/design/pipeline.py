@@ -53,7 +53,7 @@ from upswing.report.assemble import control_margins, model_hazards
 from upswing.report.verdict import Margin, Verdict
 from upswing.safety import CAUTIONS
 from upswing.synthesis.study import BalanceStudy, study_balance
-from upswing.verification.budgets import Budget
+from upswing.verification.budgets import MOUNT_ADVICE, MOUNT_RATING, Budget
 from upswing.verification.controllers import balance_controller
 from upswing.verification.hazards import HazardNote
 from upswing.verification.montecarlo import check_spreads
@@ -326,6 +326,9 @@ def run_design(rig_path: str | Path, options: DesignOptions | None = None, *,
             fails = ", ".join(f"{k}: {v}" for k, v in mc.outcomes.items() if k != "held")
             details[hold.name] = (f"{mc.successes} of {mc.rollouts} Monte Carlo rollouts held "
                                   f"({mc.success_rate:.1%})" + (f"; did not hold: {fails}" if fails else ""))
+        for b in budgets:  # a base load over the mount's rating needs a stronger fixing, not a bigger motor
+            if b.ok is False and b.name.split(".", 1)[1] in MOUNT_RATING:
+                details[b.name] = MOUNT_ADVICE
         hazards = _merge_hazards(verification.hazards if verification is not None else (),
                                  swingup.verification.hazards if checked else (),
                                  swingup_hazards(rig, swingup.budgets, tracked=checked) if swingup is not None else (),

@@ -5,8 +5,9 @@ rest within the rig's limits, Hermite–Simpson collocation with IPOPT) and turn
 
 * the planned trajectory sampled at the loop rate (the collocation interpolants, :meth:`SwingUpPlan.sample`);
 * its budgets (:func:`trajectory_budgets`): peak and RMS effort against ``peak`` and ``continuous``, joint and cart
-  speeds against ``max_speed``, rail against ``travel``, and, without limits, base loads, tip speed and kinetic
-  energy. They describe the plan, an open-loop reference; the tracked manoeuvre on the uncertain rig asks more.
+  speeds against ``max_speed``, rail against ``travel``, base loads against the ``[mount]`` ratings when the rig
+  file gives them (:func:`upswing.verification.budgets.base_load_lines`), and, without limits, tip speed and
+  kinetic energy. They describe the plan, an open-loop reference; the tracked manoeuvre on the uncertain rig asks more.
   They are judged at the plan's nodes and interval midpoints, the points where the optimizer enforces the equations
   of motion and the limits. Between them the plan is a polynomial interpolant, not a solution of the dynamics, and
   can pass a bound by about the mesh's accuracy: how far it does on the loop-rate samples is reported as a note,
@@ -35,7 +36,7 @@ from __future__ import annotations
 
 import importlib.util
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import casadi as ca
@@ -44,8 +45,8 @@ import numpy as np
 from upswing.errors import SynthesisError
 from upswing.model.dynamics import model_for
 from upswing.model.rig import Rig
-from upswing.verification.budgets import Budget
-from upswing.verification.hazards import HazardNote
+from upswing.verification.budgets import Budget, base_load_lines
+from upswing.verification.hazards import HazardNote, mount_judgement
 
 SWINGUP_MODULE = "upswing.synthesis.swingup"
 MANOEUVRE_MODULE = "upswing.verification.manoeuvre"
@@ -170,13 +171,11 @@ def trajectory_budgets(rig: Rig, t: np.ndarray, X: np.ndarray, U: np.ndarray) ->
     tip_velocity = ca.Function("tip_velocity", [q, qd], [ca.mtimes(ca.jacobian(model.points(q, p)[:, 4], q), qd)])
     tip = np.array(tip_velocity.map(n)(X[:, :n_q].T, X[:, n_q:].T))
     kinetic = np.array(model.energy.map(n)(X.T, p))[0]
-    out += [_line("base.peak_force_x", np.max(np.abs(load[0])), None, "N", "horizontal force on the base"),
-            _line("base.peak_force_y", np.max(np.abs(load[1])), None, "N", "vertical force on the base (weight "
-                  "included)"),
-            _line("base.peak_force", np.max(np.hypot(load[0], load[1])), None, "N", "magnitude of the force on the "
-                  "base"),
-            _line("base.peak_moment", np.max(np.abs(load[2])), None, "N m", "moment the shoulder passes to the base"),
-            _line("tip.peak_speed", np.max(np.hypot(tip[0], tip[1])), None, "m/s", "speed of link 2's tip"),
+    cart_x = X[:, 0] if rig.cart is not None else np.zeros(n)
+    # One trajectory: the line's median is its value, as for every other planned line.
+    out += [replace(b, median=b.value) for b in base_load_lines(rig, load[0], load[1], np.hypot(load[0], load[1]),
+                                                                 load[2], cart_x)]
+    out += [_line("tip.peak_speed", np.max(np.hypot(tip[0], tip[1])), None, "m/s", "speed of link 2's tip"),
             _line("links.peak_kinetic_energy", np.max(kinetic), None, "J", "kinetic energy of the moving parts")]
     return tuple(out)
 
@@ -189,9 +188,9 @@ def swingup_hazards(rig: Rig, budgets: tuple[Budget, ...], *, tracked: bool = Fa
     text = (f"{what} moves the tip at up to {by['tip.peak_speed'].value:.2f} m/s with up to "
             f"{by['links.peak_kinetic_energy'].value:.3g} J in the links, and loads the mount with up to "
             f"{by['base.peak_force'].value:.3g} N and {by['base.peak_moment'].value:.3g} N m: more than balancing "
-            "does, and more again when a tracked run misses. Clamp the base for these loads with a margin, keep "
-            "everyone outside the keep-out boundary, and try the manoeuvre first with reduced limits and the "
-            "emergency stop in hand.")
+            f"does, and more again when a tracked run misses. {mount_judgement(rig, budgets)} Keep everyone "
+            "outside the keep-out boundary, and try the manoeuvre first with reduced limits and the emergency stop "
+            "in hand.")
     if rig.cart is not None:
         text += (f" The cart uses {by['cart.rail_usage'].value:.3f} m of its {rig.cart.travel:.3f} m travel in "
                  "the plan; a tracked run can overshoot it.")

@@ -183,6 +183,47 @@ class SwingUpSettings:
 
 
 @dataclass(frozen=True)
+class Mount:
+    """The rig file's ``[mount]`` table: what the fixing that holds the base can take (see
+    :data:`upswing.model.schema.MOUNT` for each key).
+
+    Two force ratings, not one: the ones a person can look up or calculate differ by direction. A friction clamp
+    resists sliding with friction coefficient times its clamping force but lift-off with the full clamping force; a
+    bolt pattern is checked in shear and in tension separately; the base-load datasheets of industrial arms list
+    horizontal and vertical forces apart. One rating for both would have to be the smaller one, which either hides
+    a weak direction or fails a rig for a strength it has.
+
+    The ratings are as the datasheet or the bolt calculation gives them; upswing divides each by ``safety_factor``
+    (stated by the user, no default) to get the limit it judges against (:meth:`limit`).
+
+    Attributes
+    ----------
+    horizontal_force, vertical_force : float or None
+        Ratings [N] along x and along y (either way); None: not rated, that load is reported but not judged.
+    moment : float or None
+        Rating [N m] about the rated point, in the plane of motion; None: not rated.
+    safety_factor : float
+        Ratings are divided by it [-], >= 1.
+    shoulder_height, shoulder_offset : float
+        Vertical and horizontal distance [m] from the moment rating's point to the shoulder axis (the lever arms
+        of the horizontal and the vertical force there); 0 rates the moment about the shoulder axis itself.
+    """
+
+    horizontal_force: float | None
+    vertical_force: float | None
+    moment: float | None
+    safety_factor: float
+    shoulder_height: float = 0.0
+    shoulder_offset: float = 0.0
+
+    def limit(self, rating: str) -> float | None:
+        """``rating`` (``"horizontal_force"``, ``"vertical_force"`` or ``"moment"``) / ``safety_factor``, the
+        allowed load [N or N m]; None when that rating is not given."""
+        value = getattr(self, rating)
+        return None if value is None else value / self.safety_factor
+
+
+@dataclass(frozen=True)
 class Rig:
     """A validated double-pendulum rig. Immutable; build new rigs with :meth:`with_parameters`.
 
@@ -204,6 +245,7 @@ class Rig:
     uncertainty: Uncertainty
     verification: VerificationSettings = field(default_factory=VerificationSettings)
     swingup: SwingUpSettings = field(default_factory=SwingUpSettings)
+    mount: Mount | None = None
     description: str = ""
     source: str = "<table>"
     content_hash: str = ""
@@ -436,11 +478,12 @@ class _Loader:
         verification = VerificationSettings(**self.read(self.sub_table(table, "verification", "", False) or {},
                                                         schema.VERIFICATION, "verification"))
         swingup = self.swingup(table, base, actuated)
+        mount = self.mount(table)
         return Rig(
             name=top["name"], description=top["description"], base=base, actuated=actuated,
             gravity=top["gravity"], link1=link1, link2=link2, cart=cart, actuators=actuators,
             balance=balance, sensors=sensors, uncertainty=uncertainty, verification=verification, swingup=swingup,
-            source=self.source, warnings=tuple(self.warnings),
+            mount=mount, source=self.source, warnings=tuple(self.warnings),
         )
 
     def link(self, table: dict[str, Any], tag: str) -> Link:
@@ -532,6 +575,19 @@ class _Loader:
                                                    f"{', '.join(used)})")
         return SwingUpSettings(**values)
 
+    def mount(self, table: dict[str, Any]) -> Mount | None:
+        given = self.sub_table(table, "mount", "", False)
+        if given is None:
+            return None
+        values = self.read(given, schema.MOUNT, "mount")
+        if all(values[k] is None for k in RATINGS):
+            raise self.fail("mount", f"needs at least one rating ({', '.join(RATINGS)}); without one, leave "
+                                     "[mount] out and the base loads are reported but not judged")
+        return Mount(**values)
+
+
+# The [mount] keys that rate a load (the others are the safety factor and lever arms).
+RATINGS = ("horizontal_force", "vertical_force", "moment")
 
 # (base, actuated) -> family name; Rig.family reads the same table.
 _FAMILIES = {

@@ -283,11 +283,44 @@ SWINGUP = Table(
     ),
 )
 
-TABLES: tuple[Table, ...] = (TOP, LINK, CART, ACTUATOR, BALANCE, SENSORS, UNCERTAINTY, VERIFICATION, SWINGUP)
+MOUNT = Table(
+    "mount",
+    "What the fixing that holds the rig's base (bench clamps, a bolt pattern, the rail's brackets) can take. "
+    "Optional: without it the loads on the base are computed and reported but not judged. Each rating is the "
+    "load the fixing's datasheet or bolt calculation allows in that direction, before upswing's safety factor; the "
+    "budget limit is rating / safety_factor. A rating left out leaves that load unjudged (the hazard notes say so). "
+    "How to find the numbers: docs/user-guide.md, section 7.1.",
+    (
+        Key("horizontal_force", "float", "N", "Horizontal force (along x, either way) the fixing can take before it "
+            "slides or its bolts yield in shear: for friction clamps, friction coefficient * clamping force of the "
+            "clamps together; for bolts, their allowed shear.", default=None, low=0.0, low_open=True,
+            plausible=(5.0, 50000.0)),
+        Key("vertical_force", "float", "N", "Vertical force (along y, pulling up or pressing down, the rig's weight "
+            "included) the fixing can take; the lower of the two directions, usually lift-off: clamping force, or "
+            "the bolts' allowed tension.", default=None, low=0.0, low_open=True, plausible=(5.0, 50000.0)),
+        Key("moment", "float", "N m", "Moment in the plane of motion (about an axis parallel to the shoulder axis) "
+            "the fixing can take about its rated point before it tips or pries loose: e.g. clamping force * "
+            "distance between two clamps, or the bolt pattern's allowed tension * lever arm.", default=None,
+            low=0.0, low_open=True, plausible=(0.5, 20000.0)),
+        Key("safety_factor", "float", "-", "Factor the ratings are divided by to give the limits upswing judges "
+            "against. Required with [mount] (no default: the factor is the user's practice to state, not upswing's "
+            "to assume); 2 to 3 on the worst dynamic load is common practice for bench fixtures, more where loads "
+            "reverse often or the rating is a breaking load. 1 when the ratings above are already allowable loads.",
+            low=1.0, high=20.0, plausible=(1.0, 10.0)),
+        Key("shoulder_height", "float", "m", "Height of the shoulder axis above the moment rating's point (the "
+            "clamp face, the bolt pattern's centre): the horizontal force's lever arm there.", default=0.0, low=0.0,
+            plausible=(0.0, 3.0)),
+        Key("shoulder_offset", "float", "m", "Horizontal distance from the moment rating's point to the shoulder "
+            "axis (on a cart rig: to the shoulder with the cart at the rail's centre): the vertical force's lever "
+            "arm there.", default=0.0, low=0.0, plausible=(0.0, 3.0)),
+    ),
+)
+
+TABLES: tuple[Table, ...] = (TOP, LINK, CART, ACTUATOR, BALANCE, SENSORS, UNCERTAINTY, VERIFICATION, SWINGUP, MOUNT)
 
 # Table names a rig file may have at its top level (LINK serves both links; ACTUATOR has one sub-table per joint).
 TOP_LEVEL_TABLES: tuple[str, ...] = ("link1", "link2", "cart", "actuator", "balance", "sensors", "uncertainty",
-                                     "verification", "swingup")
+                                     "verification", "swingup", "mount")
 
 # Which [swingup] keys each family reads; the loader rejects the others (a gain that silently does nothing is worse
 # than an error). Families without an energy law (fully actuated, custom) read only the hand-over keys and, like

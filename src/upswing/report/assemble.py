@@ -23,8 +23,8 @@ from upswing.report.html import (
     figure_image,
     render,
 )
-from upswing.report.verdict import Margin, Verdict, smallest_margin, tightest_budget
-from upswing.verification.budgets import Budget
+from upswing.report.verdict import Margin, Verdict, smallest_margin
+from upswing.verification.budgets import Budget, tightest_budget
 from upswing.verification.hazards import HazardNote, fall_energy, fall_tip_speed, swept_zone_note
 
 NOT_YET_RUN = ("balance design", "swing-up", "verification on the nonlinear model")

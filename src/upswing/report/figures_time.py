@@ -21,8 +21,7 @@ from matplotlib.ticker import Locator, MaxNLocator, MultipleLocator
 from upswing.errors import RequestError
 from upswing.model.rig import Actuator, Rig
 from upswing.report import style
-from upswing.report.verdict import rated, usage
-from upswing.verification.budgets import Budget
+from upswing.verification.budgets import Budget, rated, usage
 
 SPEED_STATE = {"cart": "x_dot", "shoulder": "theta1_dot", "elbow": "theta2_dot"}  # what each actuator turns
 

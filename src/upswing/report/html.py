@@ -20,9 +20,9 @@ from matplotlib.figure import Figure
 from upswing import __version__
 from upswing.errors import RequestError
 from upswing.report import style
-from upswing.report.verdict import Margin, Verdict, usage
+from upswing.report.verdict import Margin, Verdict
 from upswing.safety import CAUTIONS, GOVERNING, STANDARDS
-from upswing.verification.budgets import Budget
+from upswing.verification.budgets import Budget, usage
 from upswing.verification.hazards import HazardNote
 
 IMAGE_TYPES = ("image/png", "image/gif")

@@ -65,6 +65,8 @@ CROSS_KEY_RULES: tuple[CrossKeyRule, ...] = (
     CrossKeyRule("balance", "velocity_cutoff", "velocity_cutoff < sample_rate / 2 (below the Nyquist frequency)."),
     CrossKeyRule("balance", "cart_process_noise", 'cart_process_noise is an error when base = "fixed".'),
     CrossKeyRule("uncertainty", "", "`[uncertainty.cart]` is an error on a fixed base."),
+    CrossKeyRule("mount", "", "`[mount]` needs at least one of horizontal_force, vertical_force, moment, and then "
+                 "safety_factor; without `[mount]` the base loads are reported but not judged."),
 )
 
 EXAMPLE = '''\

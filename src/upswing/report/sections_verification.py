@@ -130,8 +130,8 @@ def budgets_blocks(budgets: Sequence[Budget], title: str, *, source: str = "the 
         tuple((b.name, f"{b.value:.4g}", *(() if single else (f"{b.median:.4g}",)),
                "-" if b.limit is None else f"{b.limit:.4g}", b.unit,
                "-" if b.ok is None else ("yes" if b.ok else "NO")) for b in budgets),
-        f"{title}. Lines without a limit (base loads, tip speed, energy) have no rating in the rig file; they feed "
-        "the hazard notes."))
+        f"{title}. Lines without a limit (tip speed, energy, and base loads unless the rig file has a [mount] table) "
+        "have no rating in the rig file; they feed the hazard notes."))
     return blocks
 
 

@@ -5,7 +5,8 @@ torque against the drive's peak, RMS against the continuous rating, rail used ag
 value / limit, and a budget without a limit (``limit=None``) has none. A **margin** is a quantity that must stay at
 or above a required minimum (a disk margin, a PBH controllability margin, a success rate); its *ratio* is
 value / required. The report names the budget with the highest usage and the margin with the lowest ratio as what
-limits the verdict.
+limits the verdict; which budget that is, is decided in one place,
+:func:`upswing.verification.budgets.tightest_budget` (the clamped peak-effort lines are not ranked).
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from upswing.errors import RequestError
-from upswing.verification.budgets import Budget
+from upswing.verification.budgets import Budget, tightest_budget
 
 STATUSES = ("power", "do-not-power", "incomplete")
 
@@ -83,29 +84,6 @@ class Verdict:
     def __post_init__(self) -> None:
         if self.status not in STATUSES:
             raise RequestError(f"verdict status must be one of {', '.join(STATUSES)}; got {self.status!r}")
-
-
-def usage(budget: Budget) -> float:
-    """value / limit [-] of a budget with a limit (1 means the whole budget is used).
-
-    Raises
-    ------
-    RequestError
-        For a budget without a limit, or with a limit that is not a finite number > 0.
-    """
-    if budget.limit is None or not (math.isfinite(budget.limit) and budget.limit > 0):
-        raise RequestError(f"budget {budget.name!r}: usage needs a finite limit > 0; got {budget.limit!r}")
-    return budget.value / budget.limit
-
-
-def rated(budgets: Sequence[Budget]) -> tuple[Budget, ...]:
-    """The budgets that have a limit (those without one are reported, not judged)."""
-    return tuple(b for b in budgets if b.limit is not None)
-
-
-def tightest_budget(budgets: Sequence[Budget]) -> Budget | None:
-    """The rated budget with the highest usage (a failed one first when usages tie), or None if none is rated."""
-    return max(rated(budgets), key=lambda b: (usage(b), b.ok is False), default=None)
 
 
 def smallest_margin(margins: Sequence[Margin]) -> Margin | None:

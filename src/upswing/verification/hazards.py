@@ -11,10 +11,11 @@ import math
 from dataclasses import dataclass
 
 from upswing.model.derived import derived_quantities, keep_out_origin, keep_out_radius
-from upswing.model.rig import Rig
+from upswing.model.rig import RATINGS, Rig
 from upswing.safety import GOVERNING
-from upswing.verification.budgets import Budget
+from upswing.verification.budgets import MOUNT_RATING, Budget
 
+MOUNT_STANDARDS = ("ISO 12100", "ISO 14120")  # risk assessment; guards that must contain a rig that comes loose
 FALL_SHARE = 1.0  # all the potential energy between upright and hanging can become kinetic energy in a fall
 
 
@@ -67,13 +68,7 @@ def hazard_notes(rig: Rig, budgets: tuple[Budget, ...], *, rho_summary: str, suc
         f"{fall_tip_speed(rig):.1f} m/s at the bottom: enough to hurt fingers and faces. Start with reduced "
         "limits and keep the emergency stop within reach.",
         ("ISO 12100", "ISO 13850", "ISO 14120")))
-    notes.append(HazardNote(
-        "base loads",
-        f"The mount must hold a force of {by['base.peak_force'].value:.3g} N (horizontal "
-        f"{by['base.peak_force_x'].value:.3g} N, vertical {by['base.peak_force_y'].value:.3g} N incl. the weight) "
-        f"and a moment of {by['base.peak_moment'].value:.3g} N m in these runs; a fall or a swing-up loads it "
-        "more. Size clamps with a margin (common practice: at least 2x) and check them before each session.",
-        ("ISO 12100",)))
+    notes.append(base_load_note(rig, budgets))
     saturation = [b for b in budgets if b.name.endswith(".saturation_time")]
     worst_sat = max(saturation, key=lambda b: b.value)
     notes.append(HazardNote(
@@ -132,3 +127,48 @@ def _residual_motion_text(rig: Rig, by: dict[str, Budget]) -> str:
         text += (f", and the cart by up to {worst(('x',)):.3g} m from the rail's centre at up to "
                  f"{worst(('x_dot',)):.3g} m/s")
     return text
+
+
+def mount_judgement(rig: Rig, budgets: tuple[Budget, ...]) -> str:
+    """One or two sentences: whether the base loads in ``budgets`` were judged against the ``[mount]`` ratings,
+    which exceed their limit, and which ratings are missing (what to add to the rig file)."""
+    by = {b.name: b for b in budgets}
+    if rig.mount is None:
+        return ("These base loads were not judged: the rig file has no [mount] table, so upswing does not know what "
+                "the clamps or bolts can take. Add [mount] with the fixing's ratings (horizontal_force, "
+                "vertical_force, moment, and the safety_factor your practice requires; docs/rig-file.md, "
+                "docs/user-guide.md section 7.1) to have them judged.")
+    judged = [by[name] for name in MOUNT_RATING if name in by and by[name].limit is not None]
+    over = [b for b in judged if b.ok is False]
+    parts = [f"{b.name} {b.value:.3g} of {b.limit:.3g} {b.unit}" for b in judged]
+    text = (f"Judged against the [mount] ratings divided by the safety factor {rig.mount.safety_factor:g}: "
+            + "; ".join(parts) + ". ")
+    if over:
+        text += ("EXCEEDED: " + ", ".join(b.name for b in over) + ". The fixing is rated for less than this rig "
+                 "asks of it: do not run it until the base is held more strongly (and the new ratings entered). ")
+    else:
+        text += "Each is within its limit. "
+    missing = [r for r in RATINGS if getattr(rig.mount, r) is None]
+    if missing:
+        text += ("Not judged, no rating given: " + ", ".join(f"[mount].{r}" for r in missing)
+                 + "; add it to have that load judged. ")
+    return text.rstrip()
+
+
+def base_load_note(rig: Rig, budgets: tuple[Budget, ...], *, where: str = "in these runs") -> HazardNote:
+    """The base-load hazard note: the worst force and moment on the base ``where`` (e.g. "in these runs"), and
+    whether they were judged against the ``[mount]`` ratings (:func:`mount_judgement`)."""
+    by = {b.name: b for b in budgets}
+    lever = ""
+    if "base.peak_mount_moment" in by and rig.mount is not None and (
+            rig.mount.shoulder_height or rig.mount.shoulder_offset or rig.cart is not None):
+        lever = f", {by['base.peak_mount_moment'].value:.3g} N m about the mount's rated point (upper bound)"
+    return HazardNote(
+        "base loads",
+        f"The mount must hold a force of {by['base.peak_force'].value:.3g} N (horizontal "
+        f"{by['base.peak_force_x'].value:.3g} N, vertical {by['base.peak_force_y'].value:.3g} N incl. the weight) "
+        f"and a moment of {by['base.peak_moment'].value:.3g} N m at the shoulder{lever} {where}; a fall, a "
+        f"runaway or a missed swing-up catch can load it more. {mount_judgement(rig, budgets)} Loads that reverse "
+        "at every swing loosen clamps and bolts: check the fixing before each session, and guard the zone so that a "
+        "rig that comes loose stays contained.",
+        MOUNT_STANDARDS)

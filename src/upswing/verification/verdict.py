@@ -36,7 +36,7 @@ from upswing.errors import RequestError
 from upswing.model.rig import PARAMETER_NAMES, Rig
 from upswing.synthesis.balance import design_balance
 from upswing.synthesis.estimation import KINDS, EstimatorDesign, design_estimator
-from upswing.verification.budgets import Budget, compute_budgets
+from upswing.verification.budgets import Budget, compute_budgets, tightest_budget, usage
 from upswing.verification.controllers import MEASUREMENTS, balance_controller
 from upswing.verification.hazards import HazardNote, hazard_notes
 from upswing.verification.montecarlo import InitialOffsets, MonteCarloResult, run_monte_carlo, sample_offsets
@@ -146,13 +146,10 @@ def decide(successes: int, rollouts: int, budgets: tuple[Budget, ...], required_
     limited += [f"budget {b.name}" for b in over]
     if not reasons:
         limited.append(f"success-rate bound: {low:.2%} shown against {required_success:.1%} required")
-        # peak_effort is the applied effort, clamped at its limit by the actuator: reaching 100 % there means the
-        # loop saturated (judged by saturation_time), not that a limit was broken, so it is not ranked.
-        rated = [b for b in budgets if b.limit and not b.name.endswith(".peak_effort")]
-        if rated:
-            tight = max(rated, key=lambda b: b.value / b.limit)
+        tight = tightest_budget(budgets)  # peak-effort lines are clamped by the actuator, so they are not ranked
+        if tight is not None:
             limited.append(f"closest budget: {tight.name} = {tight.value:.4g} {tight.unit}, "
-                           f"{tight.value / tight.limit:.0%} of its limit {tight.limit:.4g} {tight.unit}")
+                           f"{usage(tight):.0%} of its limit {tight.limit:.4g} {tight.unit}")
     return Decision(verdict="fail" if reasons else "pass", reasons=tuple(reasons), limited_by=tuple(limited),
                     required_success=float(required_success), success_lower_bound=float(low))
 

@@ -13,7 +13,12 @@
    :func:`upswing.verification.montecarlo.sample_parameters` does, starts uniform in a small box around the nominal
    start), with sampling, saturation and the motor line, quantization, noise and the computation delay of the batch
    engine (:mod:`upswing.verification.simulate`);
-4. budgets and hazard notes (:mod:`upswing.verification.budgets`, :mod:`upswing.verification.hazards`, plus notes
+4. a drop-out study (``dropout_study=True``, the default): the Monte Carlo's first block of runs (up to
+   :data:`CHUNK`) rerun with the encoder readings frozen for 2 to 100 ms at the nominal run's fastest point and at
+   its hand-over
+   (:mod:`upswing.verification.swingup_dropout`): the longest freeze that keeps the required catch rate, and from
+   it the stale-reading threshold of the drive's supervision;
+5. budgets and hazard notes (:mod:`upswing.verification.budgets`, :mod:`upswing.verification.hazards`, plus notes
    on the swing-up itself).
 
 Success (per rollout) = caught and held: balance engaged at the last sample, no failure, and the state inside the
@@ -33,7 +38,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -60,6 +65,13 @@ from upswing.verification.simulate import STATUS, Bounds, Rollouts, SimulationSe
 from upswing.verification.stats import wilson_interval
 from upswing.verification.supervision import Supervision, derive_supervision
 from upswing.verification.swingup_control import CatchController, energy_law, tracking_law
+from upswing.verification.swingup_dropout import (
+    SwingUpDropoutStudy,
+    freeze_moments,
+    freeze_samples,
+    run_dropout_study,
+    study_rollouts,
+)
 from upswing.verification.verdict import Decision, decide
 
 METHODS = ("optimal", "energy")
@@ -166,6 +178,9 @@ class SwingUpVerification:
         Stop conditions for the firmware derived from the runs (:mod:`upswing.verification.supervision`).
     rule : HandoverRule or None
         The hand-over rule the runs used (P, x_eq, rho_in, rho_out): what the firmware must apply.
+    dropout_study : SwingUpDropoutStudy or None
+        Catch rates with the readings frozen, the longest tolerated freeze and the stale-reading threshold
+        (:mod:`upswing.verification.swingup_dropout`); None when not run.
     """
 
     method: str
@@ -202,6 +217,7 @@ class SwingUpVerification:
     level_times: np.ndarray | None = None
     supervision: Supervision | None = None
     rule: HandoverRule | None = None
+    dropout_study: SwingUpDropoutStudy | None = None
 
     def outcome_of(self, i: int) -> str:
         """How rollout ``i`` ended, in the words of ``outcomes``."""
@@ -216,7 +232,8 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
                    plan: SwingUpPlan | None = None, duration: float | None = None, minimum_time: bool = False,
                    measurement: str = "encoders", handover_level: float | None = None, settle: float = 3.0,
                    horizon: float | None = None, required_success: float | None = None,
-                   roa_samples: int = 300) -> SwingUpVerification:
+                   roa_samples: int = 300, dropout_study: bool = True,
+                   dropout_samples: tuple[int, ...] | None = None) -> SwingUpVerification:
     """Verify a swing-up with catch and balance on the uncertain nonlinear rig (see the module docstring).
 
     Parameters
@@ -245,6 +262,13 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
         Fraction in (0, 1); default ``[verification].required_success``.
     roa_samples : int
         Starts of the region-of-attraction estimate's first round (when it is needed).
+    dropout_study : bool
+        Run the drop-out study (step 4 of the module docstring): 12 more simulations of one block of runs
+        (measured: +6 s on the demo acrobot).
+    dropout_samples : tuple of int, optional
+        The study's freeze durations [control samples], ascending, >= 0; default
+        :func:`upswing.verification.swingup_dropout.freeze_samples` of
+        :data:`~upswing.verification.swingup_dropout.FREEZES_MS`.
 
     Raises
     ------
@@ -327,20 +351,24 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
     rng = np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(STREAM, 0)))
     P, _ = sample_parameters(rig, int(rollouts), rng)
     x0 = start_state + sample_offsets(rig, int(rollouts), START_OFFSETS, rng)
-    parts, times, at_end, levels = [], [], [], []
+
+    def run_blocks(run_setup: SimulationSetup, count: int) -> tuple[Rollouts, np.ndarray, np.ndarray, np.ndarray]:
+        """The first ``count`` rollouts in blocks of CHUNK (block b = rollouts b CHUNK ..., its own noise stream):
+        results, hand-over times, level times, caught and held. The drop-out study reruns exactly this."""
+        parts, times, at_end, levels = [], [], [], []
+        for block, lo in enumerate(range(0, count, CHUNK)):
+            hi = min(lo + CHUNK, count)
+            parts.append(simulate(rig, controller, x0[lo:hi], P[lo:hi], setup=run_setup, seed=seed, stream=STREAM,
+                                  block=block, ids=np.arange(lo, hi)))
+            times.append(controller.handover_time.copy())
+            levels.append(controller.level_time.copy())
+            at_end.append(controller.balancing_at_end.copy())
+        res = Rollouts.concatenate(parts)
+        return res, np.concatenate(times), np.concatenate(levels), res.held & np.concatenate(at_end)
+
     sim_clock = time.perf_counter()
-    for block, lo in enumerate(range(0, int(rollouts), CHUNK)):
-        hi = min(lo + CHUNK, int(rollouts))
-        parts.append(simulate(rig, controller, x0[lo:hi], P[lo:hi], setup=setup, seed=seed, stream=STREAM,
-                              block=block, ids=np.arange(lo, hi)))
-        times.append(controller.handover_time.copy())
-        levels.append(controller.level_time.copy())
-        at_end.append(controller.balancing_at_end.copy())
+    results, handover_times, level_times, caught = run_blocks(setup, int(rollouts))
     simulate_s = time.perf_counter() - sim_clock
-    results = Rollouts.concatenate(parts)
-    handover_times = np.concatenate(times)
-    level_times = np.concatenate(levels)
-    caught = results.held & np.concatenate(at_end)
     successes = int(caught.sum())
     outcomes = {"caught and held": successes}
     not_caught = int(np.sum(results.held & ~caught))
@@ -363,7 +391,19 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
     supervision = derive_supervision(rig, caught=caught, level_times=level_times, peak_speed=results.peak_speed,
                                      peak_rail=results.peak_rail, catch_level=rule.rho_in,
                                      duration=table.end_time if table is not None else horizon_s)
-    hazards = _hazards(rig, budgets, successes / int(rollouts), summary, supervision)
+    study = None
+    if dropout_study:
+        count = study_rollouts(int(rollouts), CHUNK)
+        rates = np.array([rig.state_names.index(s) for s in ("theta1_dot", "theta2_dot")])
+        moments = freeze_moments(nominal_run.times, nominal_run.states, nominal_run.handover_time, rates,
+                                 controller.sample_rate)
+        study = run_dropout_study(lambda s: run_blocks(s, count)[3], setup, baseline_caught=caught[:count],
+                                  moments=moments, sample_rate=controller.sample_rate, required_success=required,
+                                  samples=freeze_samples(controller.sample_rate) if dropout_samples is None
+                                  else tuple(int(s) for s in dropout_samples))
+        supervision = replace(supervision, stale_reading_samples=study.stale_reading_samples,
+                              stale_reading_ms=study.stale_reading_ms)
+    hazards = _hazards(rig, budgets, successes / int(rollouts), summary, supervision, study)
     return SwingUpVerification(
         method=method, law=law_text, plan=plan if method == "optimal" else None, table=table,
         measurement=measurement, rho_in=rule.rho_in, rho_out=rule.rho_out, rho_source=source, horizon_s=horizon_s,
@@ -374,13 +414,13 @@ def verify_swingup(rig: Rig, *, method: str = "optimal", rollouts: int = 200, se
         required_success=required, results=results, parameters=P, simulate_s=simulate_s,
         total_s=time.perf_counter() - start_clock, caught=caught,
         correlations=failure_correlations(rig, results, P, failed=~caught), level_times=level_times,
-        supervision=supervision, rule=rule)
+        supervision=supervision, rule=rule, dropout_study=study)
 
 
 def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float, summary: dict[str, float],
-             supervision: Supervision) -> tuple[HazardNote, ...]:
-    """The verification engine's notes, with the balance-only ones (tip speed while balancing, the drop-out
-    study, which is not run here) replaced by notes on the swing-up."""
+             supervision: Supervision, study: SwingUpDropoutStudy | None) -> tuple[HazardNote, ...]:
+    """The verification engine's notes, with the balance-only ones (tip speed while balancing, the balance loop's
+    drop-out study) replaced by notes on the swing-up and its own drop-out study."""
     by = {b.name: b for b in budgets}
     general = hazard_notes(rig, budgets, rho_summary="the hand-over level", success_rate=success_rate,
                            dropout_ms=None, dropout_tested_ms=())
@@ -406,11 +446,17 @@ def _hazards(rig: Rig, budgets: tuple[Budget, ...], success_rate: float, summary
            f"from: {supervision.false_trips} nuisance stops, {supervision.missed_stopped} of {supervision.missed} "
            "missed catches stopped)." if math.isfinite(supervision.catch_deadline) else "."),
         ("ISO 12100", "IEC 60204-1", "ISO 13850", "ISO 14120")))
+    if study is None:
+        found = "The frozen-reading study did not run, so no tolerated time is known: stop on the first stale reading. "
+    else:
+        found = f"In simulation, {study.summary}. "
     keep.append(HazardNote(
         "sensor fault during swing-up",
         "The swing-up law and the catch act on the encoder readings at full speed; a frozen or jumping reading "
-        "sends the links the wrong way with full effort. The firmware must detect stale or implausible encoder "
-        "data and remove drive power; treat that check as a safety function and rate it.",
+        "sends the links the wrong way with full effort. " + found + "The firmware must detect stale or "
+        "implausible encoder data (a sequence counter or time stamp per reading, not an unchanged value: a joint "
+        "at rest reads the same count) and remove drive power within that time; treat that check as a safety "
+        "function and rate it.",
         ("IEC 60204-1", "ISO 13849-1")))
     keep.append(next(n for n in general if n.topic == "governing"))
     return tuple(keep)

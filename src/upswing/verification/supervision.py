@@ -13,6 +13,8 @@ Rules (each is a stop condition for the firmware, to run as a safety function; s
   largest speed of the caught runs times (1 + :data:`SPEED_MARGIN`), never above an actuated joint's ``max_speed``.
 * **rail window** (cart rigs): |x| above ``rail_limit``, the caught runs' largest excursion times
   (1 + :data:`SPEED_MARGIN`), never beyond ``travel``.
+* **stale reading** (when the drop-out study ran, :mod:`upswing.verification.swingup_dropout`): no fresh encoder
+  reading for ``stale_reading_samples`` consecutive control samples (``stale_reading_ms``) stops the drive.
 
 Honest check: the limits are derived from the even-numbered Monte Carlo runs and checked on the odd-numbered ones:
 ``false_trips`` counts checked runs that were caught but would have been stopped (a nuisance trip), and
@@ -54,6 +56,11 @@ class Supervision:
         Checked runs that were caught but would have been stopped.
     missed, missed_stopped : int
         Checked runs that were not caught, and how many of them the limits would have stopped.
+    stale_reading_samples : int or None
+        Consecutive control samples without a fresh encoder reading that stop the drive (from the drop-out study;
+        None when it did not run).
+    stale_reading_ms : float or None
+        The same as a time [ms].
     """
 
     catch_level: float
@@ -65,6 +72,8 @@ class Supervision:
     false_trips: int
     missed: int
     missed_stopped: int
+    stale_reading_samples: int | None = None
+    stale_reading_ms: float | None = None
 
     @property
     def rule(self) -> str:
@@ -73,8 +82,12 @@ class Supervision:
             return "no run was caught: there is no swing-up to supervise"
         speeds = ", ".join(f"|{j} speed| > {v:.3g} {u}" for j, v, u in self.speed_limits)
         rail = f", |x| > {self.rail_limit:.3g} m" if self.rail_limit is not None else ""
+        stale = ""
+        if self.stale_reading_samples is not None:
+            stale = (f", or no fresh encoder reading has arrived for {self.stale_reading_ms:g} ms "
+                     f"({self.stale_reading_samples} control sample{'s' if self.stale_reading_samples != 1 else ''})")
         return (f"stop the drive when (x - x_eq)' P (x - x_eq) has not come down to {self.catch_level:.4g} by "
-                f"{self.catch_deadline:.3f} s after the start, or at any time when {speeds}{rail}")
+                f"{self.catch_deadline:.3f} s after the start, or at any time when {speeds}{rail}{stale}")
 
 
 def joint_names(rig: Rig) -> tuple[str, ...]:

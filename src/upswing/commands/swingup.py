@@ -19,7 +19,7 @@ from upswing.commands.common import Outcome, add_rig_argument, load, rig_header,
 from upswing.errors import RequestError
 from upswing.export.folders import stage_output
 from upswing.export.jsonable import dumps
-from upswing.export.swingup_files import handover_json, supervision_json, write_swingup_files
+from upswing.export.swingup_files import dropout_study_json, handover_json, supervision_json, write_swingup_files
 from upswing.model.rig import Rig
 from upswing.synthesis.swingup import SizingResult, TradeoffCurve, plan_swingup, size_motor, tradeoff_curve
 from upswing.synthesis.swingup.energy import unsuited_reason
@@ -151,6 +151,7 @@ def swingup_fields(v: SwingUpVerification) -> dict[str, Any]:
                      **({} if v.rule is None else {k: val for k, val in handover_json(v.rule).items()
                                                    if k in ("P", "x_eq")})},
         "supervision": None if v.supervision is None else supervision_json(v.supervision),
+        "dropout_study": None if v.dropout_study is None else dropout_study_json(v.dropout_study),
         "verdict": v.verdict,
         "reasons": list(v.reasons),
         "required_success": v.required_success,
@@ -166,7 +167,8 @@ def swingup_fields(v: SwingUpVerification) -> dict[str, Any]:
         "timing": {"simulate_s": v.simulate_s, "total_s": v.total_s, "rollouts": v.rollouts,
                    "horizon_s": v.horizon_s},
         "units_extra": {"duration": "s", "handover_time": "s", "solve_s": "s", "peak_input": "input units",
-                        "success_rate": "fraction", "rho": "cost-to-go (dimensionless)"},
+                        "success_rate": "fraction", "rho": "cost-to-go (dimensionless)",
+                        "dropout_study": "ms (duration_ms, stale_reading_ms), control samples (samples), s (time_s)"},
     }
 
 
@@ -181,6 +183,16 @@ def _supervision_lines(v: SwingUpVerification) -> list[str]:
     return [f"stop conditions for the drive (run them as a safety function, ISO 13849-1): {s.rule}; checked on "
             f"{s.checked_on} runs they were not derived from: {s.false_trips} nuisance stops, {s.missed_stopped} "
             f"of {s.missed} missed catches stopped"]
+
+
+def _dropout_lines(v: SwingUpVerification) -> list[str]:
+    s = v.dropout_study
+    if s is None:
+        return []
+    rates = "; ".join(f"{m.name} point {m.time_s:.3f} s: " + ", ".join(
+        f"{c.duration_ms:g} ms {c.successes}/{c.rollouts}" for c in s.cases if c.moment == m.name and c.samples > 0)
+        for m in s.moments)
+    return [f"frozen encoder readings: {s.summary}", f"  caught per freeze: {rates}"]
 
 
 def _miss_lines(v: SwingUpVerification) -> list[str]:
@@ -210,6 +222,7 @@ def swingup_text(rig: Rig, v: SwingUpVerification, folder: str | None) -> str:
         f"outcomes: {', '.join(f'{k}: {n}' for k, n in v.outcomes.items())}",
         *_miss_lines(v),
         *_supervision_lines(v),
+        *_dropout_lines(v),
         f"nominal run: {v.nominal.status}, hand-over at {_fmt(v.nominal.handover_time)}",
         f"hand-over: x'Px <= {v.rho_in:.4g} engages balance, above {v.rho_out:.4g} releases ({v.rho_source}); "
         f"times over caught rollouts: min {_fmt(v.handover_summary['min'])}, median "

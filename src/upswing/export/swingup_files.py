@@ -18,8 +18,9 @@ the result says how many bytes it would need.
 With a verified swing-up the writers add what the firmware needs to do exactly what was verified: the hand-over
 rule (the balance cost-to-go matrix P, the upright x_eq and the levels rho_in / rho_out: balance engages when
 (x - x_eq)' P (x - x_eq) <= rho_in, releases above rho_out, and engages after the last row in any case) and the
-stop conditions of :mod:`upswing.verification.supervision` (catch deadline, speed and rail windows), in
-``swingup.json`` and, as arrays and macros, in the C header.
+stop conditions of :mod:`upswing.verification.supervision` (catch deadline, speed and rail windows and, when the
+drop-out study of :mod:`upswing.verification.swingup_dropout` ran, the stale-reading time), in ``swingup.json`` and,
+as arrays and macros, in the C header.
 
 These writers put files into a folder the caller provides (the CLI stages it with
 :func:`upswing.export.folders.stage_output`, so a run is never half-written and never overwrites another).
@@ -49,6 +50,7 @@ from upswing.model.rig import INPUT_UNITS, Rig
 from upswing.safety import CAUTIONS, GOVERNING
 from upswing.synthesis.swingup.tracking import HandoverRule, TrackingTable
 from upswing.verification.supervision import Supervision
+from upswing.verification.swingup_dropout import SwingUpDropoutStudy
 
 CSV_NAME = "swingup.csv"
 JSON_NAME = "swingup.json"
@@ -140,9 +142,40 @@ def supervision_json(sup: Supervision) -> dict[str, Any]:
             "rail_limit_m": sup.rail_limit, "rule": sup.rule, "derived_from_runs": sup.derived_from,
             "checked_on_runs": sup.checked_on, "false_trips": sup.false_trips, "missed_runs": sup.missed,
             "missed_stopped": sup.missed_stopped,
-            "note": "derived from the even-numbered Monte Carlo runs, checked on the odd-numbered ones; run these "
+            "stale_reading_ms": sup.stale_reading_ms, "stale_reading_samples": sup.stale_reading_samples,
+            "note": "derived from the even-numbered Monte Carlo runs, checked on the odd-numbered ones (the "
+                    "stale-reading time from the frozen-reading study: null when it did not run); run these "
                     "checks as a safety function of the drive (ISO 13849-1) and stop with category 0 or 1 "
                     "(IEC 60204-1)"}
+
+
+def dropout_study_json(study: SwingUpDropoutStudy) -> dict[str, Any]:
+    """The frozen-reading study of a verified swing-up as JSON fields (``dropout_study`` of ``upswing swingup
+    --json``): moments, one object per (moment, duration), the longest tolerated freeze and the threshold."""
+    return {
+        "rollouts_each": study.rollouts, "sample_rate": study.sample_rate,
+        "required_success": study.required_success, "bar": study.bar,
+        "baseline_successes": study.baseline_successes,
+        "freeze": "a freeze of n samples starting at sample k0 repeats the reading of sample k0 - 1 at samples "
+                  "k0 .. k0 + n - 1; duration_ms = n / sample_rate",
+        "tolerated_rule": "a freeze is tolerated when the 95 % Wilson lower bound of its catch rate reaches bar = "
+                          "min(required_success, the lower bound of the same runs without a freeze), and so do "
+                          "all shorter ones at that moment",
+        "moments": [{"name": m.name, "sample": m.sample, "time_s": m.time_s, "meaning": m.meaning}
+                    for m in study.moments],
+        "cases": [{"moment": c.moment, "samples": c.samples, "duration_ms": c.duration_ms, "successes": c.successes,
+                   "rollouts": c.rollouts, "success_rate": c.success_rate, "success_interval": list(c.interval),
+                   "lost": c.lost, "gained": c.gained, "tolerated": c.meets} for c in study.cases],
+        "longest_tolerated_by_moment": dict(study.longest_tolerated),
+        "longest_tolerated_samples": study.longest_tolerated_samples,
+        "longest_tolerated_ms": study.longest_tolerated_ms,
+        "all_tolerated": study.all_tolerated,
+        "stale_reading_samples": study.stale_reading_samples,
+        "stale_reading_ms": study.stale_reading_ms,
+        "threshold_rule": study.threshold_reason,
+        "summary": study.summary,
+        "simulate_s": study.simulate_s,
+    }
 
 
 def json_object(rig: Rig, table: TrackingTable, handover: HandoverRule | None = None,
@@ -214,6 +247,9 @@ def _c_catch_parts(handover: HandoverRule | None, supervision: Supervision | Non
             macros.append(f"#define UPSWING_STOP_SPEED_{joint.upper()} {_c_float(value)}")
         if supervision.rail_limit is not None:
             macros.append(f"#define UPSWING_STOP_RAIL_M {_c_float(supervision.rail_limit)}")
+        if supervision.stale_reading_samples is not None:
+            macros += [f"#define UPSWING_STOP_STALE_READING_SAMPLES {int(supervision.stale_reading_samples)}",
+                       f"#define UPSWING_STOP_STALE_READING_MS {_c_float(supervision.stale_reading_ms)}"]
     return tuple(("\n" + "\n".join(part)) if part else "" for part in (macros, declarations, definitions))
 
 
@@ -223,7 +259,8 @@ def c_header_text(rig: Rig, table: TrackingTable, handover: HandoverRule | None 
     behind ``#ifdef UPSWING_SWINGUP_TABLE_DEFINE``; with a verified swing-up also the hand-over rule
     (``upswing_handover_P``, ``upswing_handover_x_eq``, ``UPSWING_HANDOVER_RHO_IN``/``_OUT``) and the stop
     conditions (``UPSWING_STOP_CATCH_DEADLINE_S``, ``UPSWING_STOP_SPEED_<JOINT>`` [rad/s or m/s],
-    ``UPSWING_STOP_RAIL_M``)."""
+    ``UPSWING_STOP_RAIL_M``, ``UPSWING_STOP_STALE_READING_SAMPLES`` [control samples without a fresh encoder
+    reading] and ``UPSWING_STOP_STALE_READING_MS``)."""
     _check(rig, table)
     catch_macros, catch_declarations, catch_definitions = _c_catch_parts(handover, supervision)
     comment = c_comment(swingup_header(rig, table))[3:-4].rstrip("\n")  # the lines, inside this file's comment

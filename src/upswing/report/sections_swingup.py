@@ -31,6 +31,29 @@ def plan_table(rig: Rig, outcome: SwingUpOutcome) -> Table:
     return Table(("quantity", "value", "unit"), rows, "The optimized swing-up from hanging to upright at rest.")
 
 
+def dropout_table(study) -> Table:
+    """Catch rate per freeze length and moment (a :class:`~upswing.verification.swingup_dropout
+    .SwingUpDropoutStudy`), with the stale-reading threshold it gives the firmware."""
+    by = {(c.moment, c.samples): c for c in study.cases}
+    durations = sorted({c.samples for c in study.cases})
+
+    def cell(c) -> str:
+        low, high = c.interval
+        return (f"{c.successes} of {c.rollouts} ({100 * low:.1f} .. {100 * high:.1f} %)"
+                + ("" if c.meets else ", short"))
+
+    rows = tuple((f"{1000.0 * n / study.sample_rate:g}", str(n),
+                  *[cell(by[(m.name, n)]) if (m.name, n) in by else "-" for m in study.moments]) for n in durations)
+    header = ("frozen for [ms]", "control samples",
+              *[f"caught, freeze at the {m.name} point ({m.time_s:.3f} s)" for m in study.moments])
+    return Table(header, rows,
+                 f"Swing-ups caught with the encoder readings frozen (the verification's first {study.rollouts} "
+                 f"runs, same draws; 95 % Wilson interval in brackets; 'short': the lower bound is below "
+                 f"{100 * study.bar:.1f} %). In short: {study.summary}. swingup.json and the C header carry the "
+                 "threshold (UPSWING_STOP_STALE_READING_SAMPLES); run the check as a safety function "
+                 "(ISO 13849-1).")
+
+
 def verified_blocks(rig: Rig, check) -> list:
     """The tracked manoeuvre on the uncertain model (a :class:`~upswing.verification.manoeuvre.SwingUpVerification`):
     success rate with its interval, outcomes, hand-over times, the nominal run against the envelope, budgets."""
@@ -69,6 +92,9 @@ def verified_blocks(rig: Rig, check) -> list:
             f"on {sup.checked_on} others: {sup.false_trips} nuisance stops, {sup.missed_stopped} of {sup.missed} "
             "missed catches stopped. Run them as a safety function (ISO 13849-1) with stop category 0 or 1 "
             "(IEC 60204-1); swingup.json and the C header carry them."))
+    study = getattr(check, "dropout_study", None)
+    if study is not None:
+        blocks.append(dropout_table(study))
     notable = [c for c in getattr(check, "correlations", ()) if c.notable]
     if notable:
         blocks.append(Table(

@@ -48,12 +48,31 @@ def test_json_contract_and_export(tmp_path, capsys):
     table = np.loadtxt(io.StringIO("\n".join(body[1:])), delimiter=",", ndmin=2)
     assert table.shape[0] == data["table"]["rows"]
     assert text.startswith("# upswing ")  # the shared export header block (upswing.export.header)
+    # The frozen-reading study (upswing.verification.swingup_dropout): its field, and the threshold it gives the
+    # drive's supervision in the JSON, in swingup.json and in the C header.
+    study = data["dropout_study"]
+    for key in ("rollouts_each", "sample_rate", "moments", "cases", "longest_tolerated_ms", "stale_reading_ms",
+                "stale_reading_samples", "threshold_rule", "summary"):
+        assert key in study
+    assert [m["name"] for m in study["moments"]] == ["fastest", "hand-over"]
+    assert study["rollouts_each"] == 80  # all of them: fewer than one block of 128
+    assert all(c["rollouts"] == 80 and len(c["success_interval"]) == 2 for c in study["cases"])
+    assert data["supervision"]["stale_reading_ms"] == study["stale_reading_ms"]
+    assert study["stale_reading_ms"] == pytest.approx(1000.0 * study["stale_reading_samples"] / 500.0)
+    exported = json.loads((folders[0] / "swingup.json").read_text())
+    assert exported["supervision"]["stale_reading_samples"] == study["stale_reading_samples"]
+    if "swingup_table.h" in names:
+        header = (folders[0] / "swingup_table.h").read_text()
+        assert f"#define UPSWING_STOP_STALE_READING_SAMPLES {study['stale_reading_samples']}\n" in header
+    assert any(f"{study['stale_reading_ms']:g} ms" in h["text"] for h in data["hazards"]
+               if h["topic"] == "sensor fault during swing-up")
 
 
 def test_text_summary_names_verdict_handover_and_budgets(capsys):
     code, out, _ = _run(capsys, CART, "--rollouts", 80)
     assert code == 0
-    for phrase in ("VERDICT: PASS", "hand-over", "cart.rail_usage", "hazard notes", "Local codes"):
+    for phrase in ("VERDICT: PASS", "hand-over", "cart.rail_usage", "hazard notes", "Local codes",
+                   "frozen encoder readings", "no fresh encoder reading"):
         assert phrase in out
 
 
@@ -112,5 +131,6 @@ def test_energy_method_reports_the_contract_fields(capsys):
     assert all(key in data for key in CONTRACT)
     assert data["method"] == "energy" and data["status"].startswith("energy law")
     assert data["solve_s"] is None and data["iterations"] is None and data["table"] is None
+    assert data["dropout_study"] is None  # not run for the energy law (25 s horizons: see verify_swingup)
     # Exit code follows the verdict: 0 only on a pass (the demo acrobot's energy law is not a reliable swing-up).
     assert code == (0 if data["verdict"] == "pass" else EXIT_VERDICT)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import shutil
@@ -56,6 +57,8 @@ def test_c_header_carries_the_handover_rule_and_stop_conditions(tmp_path):
     speed = np.array([[1.0, 10.0, 20.0]] * 4)
     sup = derive_supervision(rig, caught=np.ones(4, dtype=bool), level_times=np.full(4, 2.0), peak_speed=speed,
                              peak_rail=np.full(4, 0.3), duration=3.0, catch_level=rule.rho_in)
+    # the stale-reading stop condition, as the drop-out study sets it (upswing.verification.swingup_dropout)
+    sup = dataclasses.replace(sup, stale_reading_samples=5, stale_reading_ms=10.0)
     files = write_swingup_files(tmp_path, rig, table, handover=rule, supervision=sup)
     x = rng.normal(scale=0.1, size=rig.n_states)
     (tmp_path / "data.c").write_text(f'#define UPSWING_SWINGUP_TABLE_DEFINE\n#include "{C_HEADER_NAME}"\n')
@@ -68,9 +71,10 @@ int main(void)
     for (int i = 0; i < UPSWING_SWINGUP_STATES; ++i)
         for (int j = 0; j < UPSWING_SWINGUP_STATES; ++j)
             level += (x[i] - upswing_handover_x_eq[i]) * upswing_handover_P[i][j] * (x[j] - upswing_handover_x_eq[j]);
-    printf("%.9g %.9g %.9g %.9g %.9g %.9g\\n", level, (double)UPSWING_HANDOVER_RHO_IN,
+    const int stale = UPSWING_STOP_STALE_READING_SAMPLES; /* a whole number: a sample counter compares with it */
+    printf("%.9g %.9g %.9g %.9g %.9g %.9g %d %.9g\\n", level, (double)UPSWING_HANDOVER_RHO_IN,
            (double)UPSWING_STOP_CATCH_DEADLINE_S, (double)UPSWING_STOP_SPEED_CART, (double)UPSWING_STOP_SPEED_ELBOW,
-           (double)UPSWING_STOP_RAIL_M);
+           (double)UPSWING_STOP_RAIL_M, stale, (double)UPSWING_STOP_STALE_READING_MS);
     return 0;
 }}
 """)
@@ -86,6 +90,9 @@ int main(void)
     assert out[3] == pytest.approx((1 + SPEED_MARGIN) * 1.0, rel=1e-7)
     assert out[4] == pytest.approx((1 + SPEED_MARGIN) * 20.0, rel=1e-7)  # passive on a cart rig: no rating cap
     assert out[5] == pytest.approx(min((1 + SPEED_MARGIN) * 0.3, rig.cart.travel), rel=1e-7)
+    assert out[6] == 5 and out[7] == pytest.approx(10.0, rel=1e-7)
     obj = json.loads(files.json.read_text())
     assert np.allclose(np.array(obj["handover"]["P"]), rule.P, rtol=1e-15, atol=0)
     assert obj["supervision"]["catch_deadline_s"] == sup.catch_deadline
+    assert obj["supervision"]["stale_reading_samples"] == 5 and obj["supervision"]["stale_reading_ms"] == 10.0
+    assert "no fresh encoder reading has arrived for 10 ms (5 control samples)" in obj["supervision"]["rule"]

@@ -46,12 +46,20 @@ def dropout_table(study) -> Table:
                   *[cell(by[(m.name, n)]) if (m.name, n) in by else "-" for m in study.moments]) for n in durations)
     header = ("frozen for [ms]", "control samples",
               *[f"caught, freeze at the {m.name} point ({m.time_s:.3f} s)" for m in study.moments])
+    if not study.shown:
+        held = "The swing-up did not show the required catch rate without a freeze, so no freeze counts as tolerated"
+    elif study.longest_tolerated_ms is None:
+        held = "Even the shortest freeze was not tolerated"
+    else:
+        held = f"Freezes up to {study.longest_tolerated_ms:g} ms were tolerated at every moment tested"
+    plural = "s" if study.stale_reading_samples != 1 else ""
     return Table(header, rows,
                  f"Swing-ups caught with the encoder readings frozen (the verification's first {study.rollouts} "
                  f"runs, same draws; 95 % Wilson interval in brackets; 'short': the lower bound is below "
-                 f"{100 * study.bar:.1f} %). In short: {study.summary}. swingup.json and the C header carry the "
-                 "threshold (UPSWING_STOP_STALE_READING_SAMPLES); run the check as a safety function "
-                 "(ISO 13849-1).")
+                 f"{100 * study.bar:.1f} %). {held}: the drive must lose power when no fresh encoder reading has "
+                 f"arrived for {study.stale_reading_ms:g} ms ({study.stale_reading_samples} control sample{plural} "
+                 f"at {study.sample_rate:g} Hz; {study.threshold_reason}). swingup.json and the C header carry it "
+                 "(UPSWING_STOP_STALE_READING_SAMPLES); run the check as a safety function (ISO 13849-1).")
 
 
 def verified_blocks(rig: Rig, check) -> list:

@@ -185,9 +185,9 @@ class SwingUpDropoutStudy:
 
     @property
     def first_short(self) -> FreezeCase | None:
-        """The shortest freeze that was not tolerated (the earlier moment on a tie), or None."""
+        """The shortest freeze that was not tolerated (of those, the moment with the fewest catches), or None."""
         short = [c for c in self.cases if c.samples > 0 and not c.meets]
-        return min(short, key=lambda c: c.samples) if short else None
+        return min(short, key=lambda c: (c.samples, c.successes)) if short else None
 
     @property
     def summary(self) -> str:

@@ -184,3 +184,17 @@ def test_durations_become_whole_samples_and_bad_ones_are_refused():
     with pytest.raises(RequestError):
         run_dropout_study(lambda s: np.ones(4, bool), SimulationSetup(), baseline_caught=np.ones(4, bool),
                           moments=(), sample_rate=500.0, required_success=0.5, samples=(5, 2), shown=True)
+
+
+def test_report_table_shows_every_case(acrobot_study):
+    from upswing.report.sections_swingup import dropout_table
+
+    _, _, v = acrobot_study
+    study = v.dropout_study
+    table = dropout_table(study)
+    assert len(table.header) == 2 + len(study.moments) and len(table.rows) == 2  # freezes of 0 and 100 samples
+    cells = {row[1]: row[2:] for row in table.rows}
+    for case in study.cases:
+        cell = cells[str(case.samples)][[m.name for m in study.moments].index(case.moment)]
+        assert cell.startswith(f"{case.successes} of {case.rollouts} ") and cell.endswith(", short") != case.meets
+    assert f"{study.stale_reading_ms:g} ms" in table.caption

@@ -137,6 +137,12 @@ def test_summary_numbers_are_consistent(runs, name):
     if swing["successes"]:
         assert 0 < handover["min"] <= handover["median"] <= handover["p95"] <= handover["max"]
         assert handover["max"] <= summary["swingup"]["horizon_s"]
+        # Stop conditions: a deadline after the first catch, speed windows within every actuated max_speed.
+        sup = summary["swingup"]["supervision"]
+        assert sup["catch_deadline_s"] > handover["min"]
+        rig = run.rig
+        for joint, value in sup["speed_limits"].items():
+            assert value > 0 and (joint not in rig.actuated or value <= rig.actuator(joint).max_speed)
     # The swing-up budgets are the tracked ones (verify_swingup), judged against the rig's limits.
     tracked = {b.name: b for b in run.swingup.verification.budgets}
     for b in summary["budgets"]:

@@ -180,6 +180,8 @@ def _supervision_lines(v: SwingUpVerification) -> list[str]:
     s = v.supervision
     if s is None:
         return []
+    if not math.isfinite(s.catch_deadline):
+        return [f"stop conditions for the drive: {s.rule}"]
     return [f"stop conditions for the drive (run them as a safety function, ISO 13849-1): {s.rule}; checked on "
             f"{s.checked_on} runs they were not derived from: {s.false_trips} nuisance stops, {s.missed_stopped} "
             f"of {s.missed} missed catches stopped"]

@@ -23,7 +23,9 @@ Fields (names are a contract: more may be added, none renamed):
     Null without a planned swing-up; else ``verified`` (bool), ``duration_s`` (the plan), and when verified
     ``handover_time`` (``min``, ``median``, ``p95``, ``max`` over the caught rollouts [s], null when none was
     caught), ``nominal_handover_time`` [s] (null if the nominal run never handed over), ``nominal_caught``,
-    ``handover_level`` (rho_in, rho_out and their source), ``verdict`` and ``reasons`` of the manoeuvre check.
+    ``handover_level`` (rho_in, rho_out and their source), ``verdict`` and ``reasons`` of the manoeuvre check,
+    ``supervision`` (the stop conditions for the drive, as in ``swingup.json``; null when none was derived) and
+    ``miss_correlations`` (the parameters the missed catches follow, strongest first).
 ``stages``, ``timing``
     Each stage's ``name``, ``status``, ``seconds`` and ``message``; ``timing`` has ``stages`` (name -> s),
     ``report_s``, ``files_s`` and ``total_s``.
@@ -45,6 +47,7 @@ from upswing import __version__
 from upswing.design.decision import DESIGN_RULE
 from upswing.design.pipeline import DesignRun
 from upswing.export.header import rig_header, safety_block
+from upswing.export.swingup_files import supervision_json
 from upswing.report.html import STATUS_WORDS
 from upswing.report.verdict import Margin
 from upswing.verification.budgets import Budget
@@ -94,7 +97,11 @@ def swingup_json(run: DesignRun) -> dict[str, Any] | None:
         out.update(handover_time=None if summary["median"] is None else summary,
                    nominal_handover_time=_finite(check.nominal.handover_time), nominal_caught=check.nominal.caught,
                    handover_level={"rho_in": check.rho_in, "rho_out": check.rho_out, "source": check.rho_source},
-                   verdict=check.verdict, reasons=list(check.reasons), horizon_s=check.horizon_s)
+                   verdict=check.verdict, reasons=list(check.reasons), horizon_s=check.horizon_s,
+                   supervision=None if check.supervision is None else supervision_json(check.supervision),
+                   miss_correlations=[{"parameter": c.parameter, "r": c.r, "notable": bool(c.notable),
+                                       "mean_deviation_missed": c.mean_deviation_failed,
+                                       "mean_deviation_caught": c.mean_deviation_held} for c in check.correlations])
     return out
 
 

@@ -67,7 +67,7 @@ typedef struct {
     upswing_real y_hold[UPSWING_LOOP_N_MEASURED];   /* last fresh raw reading [rad or m] */
     upswing_real rate[UPSWING_LOOP_N_MEASURED];     /* low-passed rate term [rad/s or m/s] (see upswing_loop.c) */
     upswing_real xi[UPSWING_LOOP_N_XI];             /* balance Kalman filter state */
-    upswing_real pending[UPSWING_LOOP_N_PENDING];   /* balance commands not yet applied (delay), minus u_eq, oldest first */
+    upswing_real pending[UPSWING_LOOP_N_PENDING];   /* balance commands not yet applied, minus u_eq, oldest first */
     upswing_real x_hat[UPSWING_LOOP_N_STATES];      /* last state estimate (absolute, state order) for logging */
     upswing_real level;                             /* last cost-to-go (x - x_eq)' P (x - x_eq) [-] for logging */
 } upswing_loop_state;

@@ -7,9 +7,11 @@ held, saturated at peak; hand-over on the balance cost-to-go with hysteresis; th
 headers as they are. Here it is compiled with the strict flags of the balance-export test, fed the encoder readings
 the Python :class:`~upswing.verification.swingup_control.CatchController` saw in a recorded nominal run of the batch
 engine (simulated as :mod:`upswing.verification.manoeuvre` does), and its commands and modes are compared with the
-engine's, sample by sample. The outside reference is the C compiler and IEEE 754 single precision (the firmware's
-arithmetic) against the engine's double precision; the stop conditions are checked against the rule
-:class:`~upswing.verification.supervision.Supervision` states in words.
+engine's, sample by sample: built with double working precision (the logic, to round-off) and with float (the
+firmware's arithmetic, IEEE 754 binary32, to a bound on float rounding). The other demo families (a cart with a
+computation delay, two inputs, the pendubot) are compared the same way on made-up tables and readings, replayed open
+loop. The stop conditions are checked against the rule :class:`~upswing.verification.supervision.Supervision` states
+in words.
 """
 
 from __future__ import annotations
@@ -27,20 +29,21 @@ from upswing.export.swingup_files import write_swingup_files
 from upswing.model.rig import load_rig
 from upswing.synthesis.study import study_balance
 from upswing.synthesis.swingup import plan_swingup
-from upswing.synthesis.swingup.tracking import handover_rule, tvlqr_from_reference
+from upswing.synthesis.swingup.tracking import handover_rule, tvlqr_from_reference, tvlqr_from_samples
 from upswing.verification.controllers import LinearFeedback
 from upswing.verification.simulate import Bounds, SimulationSetup, simulate
-from upswing.verification.supervision import derive_supervision
+from upswing.verification.supervision import Supervision, derive_supervision, joint_names
 from upswing.verification.swingup_control import CatchController, tracking_law
 
 GCC = shutil.which("gcc")
 CFLAGS = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic"]
 EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "firmware"
 DEMO = Path(__file__).resolve().parents[1] / "src" / "upswing" / "demo" / "acrobot.toml"
+SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 HANDOVER_LEVEL = 40.0  # rho_in [-]: the nominal run reaches it about 0.85 s before the table ends (see below)
 STALE_SAMPLES = 5  # a stale-reading threshold to exercise that stop (the demo's drop-out study gives 5 at 500 Hz)
 TRACKING, BALANCING = 0, 1
-STOP_CATCH_DEADLINE, STOP_SPEED, STOP_STALE, STOP_BAD_READING, STOP_SEQUENCE = 16, 17, 19, 20, 21
+STOP_CATCH_DEADLINE, STOP_SPEED, STOP_RAIL, STOP_STALE, STOP_BAD_READING, STOP_SEQUENCE = 16, 17, 18, 19, 20, 21
 
 DRIVER = r"""
 #include <stdio.h>
@@ -143,18 +146,12 @@ def _reading_lines(rec: Recorded, y: np.ndarray) -> list[str]:
     return [" ".join(repr(float(v)) for v in row + rec.x_eq_measured) for row in y]
 
 
-@pytest.fixture(scope="module")
-def recorded(tmp_path_factory) -> Recorded:
-    if GCC is None:
-        pytest.skip("gcc is not installed: the reference C loop cannot be compiled")
-    rig = load_rig(DEMO)
-    plan = plan_swingup(rig)  # ~1.5 s
-    table = tvlqr_from_reference(rig, plan.sample, plan.duration)
-    study = study_balance(rig)
-    rule = handover_rule(rig, HANDOVER_LEVEL)
-    # Every number the C loop gets from a header is a float32. The engine runs here with the same numbers
-    # (the designs rounded to float32 before they are exported and simulated), so that what is left between the two
-    # is the arithmetic alone: double in the engine, the C loop's working precision.
+def _as_exported(rig, table, study, rule):
+    """The designs with every number a header carries rounded to float32, and the balance loop built from them.
+
+    The C loop reads float32 numbers; the engine runs here with the same numbers, so that what is left between the
+    two is the arithmetic alone: double in the engine, the C loop's working precision. The LinearFeedback is what
+    :func:`upswing.verification.controllers.balance_controller` builds, from the rounded design."""
     table = replace(table, t=_f32(table.t), x_ref=_f32(table.x_ref), u_ff=_f32(table.u_ff), K=_f32(table.K),
                     peak=_f32(table.peak))
     k = study.kalman
@@ -164,10 +161,37 @@ def recorded(tmp_path_factory) -> Recorded:
     study = replace(study, design=design, kalman=kalman)
     rule = replace(rule, P=_f32(rule.P), x_eq=_f32(rule.x_eq), rho_in=float(np.float32(rule.rho_in)),
                    rho_out=float(np.float32(rule.rho_out)))
-    peak = _f32(rig.peak_inputs)
-    # The balance loop the engine runs: exactly the exported design and Kalman filter (balance_controller builds
-    # the same LinearFeedback from the unrounded design).
-    balance = LinearFeedback(design.K_discrete, design.u_eq, peak, design.sample_rate, design.delay_samples, kalman)
+    balance = LinearFeedback(design.K_discrete, design.u_eq, _f32(rig.peak_inputs), design.sample_rate,
+                             design.delay_samples, kalman)
+    return table, study, rule, balance
+
+
+def _build(folder: Path, rig) -> dict[str, Path]:
+    """Compile the driver and the reference loop against the headers in ``folder``, in float and in double."""
+    driver = folder / "driver.c"
+    driver.write_text(DRIVER)
+    cutoff = f"-DUPSWING_LOOP_RATE_CUTOFF_HZ={rig.swingup.tracking_rate_cutoff!r}f"
+    exe = {}
+    for real in ("float", "double"):
+        exe[real] = folder / f"driver_{real}"
+        build = subprocess.run([GCC, *CFLAGS, cutoff, f"-DUPSWING_LOOP_REAL={real}", "-I", str(folder), "-I",
+                                str(EXAMPLE), str(driver), str(EXAMPLE / "upswing_loop.c"), "-o", str(exe[real]),
+                                "-lm"], capture_output=True, text=True)
+        assert build.returncode == 0, build.stderr  # warning-free under -Wall -Wextra -Werror -pedantic
+    return exe
+
+
+@pytest.fixture(scope="module")
+def recorded(tmp_path_factory) -> Recorded:
+    if GCC is None:
+        pytest.skip("gcc is not installed: the reference C loop cannot be compiled")
+    rig = load_rig(DEMO)
+    plan = plan_swingup(rig)  # ~1.5 s
+    table = tvlqr_from_reference(rig, plan.sample, plan.duration)
+    study = study_balance(rig)
+    rule = handover_rule(rig, HANDOVER_LEVEL)
+    table, study, rule, balance = _as_exported(rig, table, study, rule)
+    design, kalman, peak = study.design, study.kalman, balance.peak
     log = LoggedController(CatchController(rig, tracking_law(table), balance, rule, table.end_time, reference=table))
     # The nominal run as verification/manoeuvre.py simulates it: encoders (rounding and noise), record=True.
     run = simulate(rig, log, plan.start[None, :], setup=SimulationSetup(
@@ -187,16 +211,7 @@ def recorded(tmp_path_factory) -> Recorded:
     write_balance_files(folder, rig, study, balance_fields(rig, study))
     files = write_swingup_files(folder, rig, table, handover=rule, supervision=sup)
     assert files.c_header is not None, files.note
-    driver = folder / "driver.c"
-    driver.write_text(DRIVER)
-    cutoff = f"-DUPSWING_LOOP_RATE_CUTOFF_HZ={rig.swingup.tracking_rate_cutoff!r}f"
-    exe = {}
-    for real in ("float", "double"):
-        exe[real] = folder / f"driver_{real}"
-        build = subprocess.run([GCC, *CFLAGS, cutoff, f"-DUPSWING_LOOP_REAL={real}", "-I", str(folder), "-I",
-                                str(EXAMPLE), str(driver), str(EXAMPLE / "upswing_loop.c"), "-o", str(exe[real]),
-                                "-lm"], capture_output=True, text=True)
-        assert build.returncode == 0, build.stderr  # warning-free under -Wall -Wextra -Werror -pedantic
+    exe = _build(folder, rig)
 
     n = rig.n_states
     rate_gain = max(float(np.max(np.abs(table.K[:, :, n_q:]))), float(np.max(np.abs(design.K_discrete[:, n_q:n]))))
@@ -215,8 +230,11 @@ def recorded(tmp_path_factory) -> Recorded:
 # readings but is not bounded separately here. Plus eight round-offs of a command of at most the peak. On the demo
 # acrobot: double build 1.3e-11 N m (measured 1.2e-12); float build 7.2e-3 N m, 0.4 % of the 1.9 N m peak
 # (measured 9.6e-5 while tracking, 7e-6 while balancing).
-def _tolerance(rec: Recorded, unit_roundoff: float) -> float:
-    return 2 * (2 * np.pi * unit_roundoff * rec.sample_rate) * rec.rate_gain + 8 * unit_roundoff * float(max(rec.peak))
+def _tolerance(sample_rate: float, rate_gain: float, peak: np.ndarray, unit_roundoff: float) -> float:
+    return 2 * (2 * np.pi * unit_roundoff * sample_rate) * rate_gain + 8 * unit_roundoff * float(np.max(peak))
+
+
+ROUNDOFF = {"double": 2.0 ** -53, "float": 2.0 ** -24}
 
 
 @pytest.mark.parametrize("real", ["double", "float"])
@@ -241,7 +259,7 @@ def test_c_loop_reproduces_the_engine_commands_and_handover(recorded, real):
     assert np.any((before == BALANCING) & (status == BALANCING) & (level > rec.rho_in) & (level <= rec.rho_out))
     # The engine sends its request unclamped and lets the drive clamp at peak (controllers.py); compare clamped.
     u_py = np.clip(rec.u, -rec.peak, rec.peak)
-    tol = _tolerance(rec, 2.0 ** -53 if real == "double" else 2.0 ** -24)
+    tol = _tolerance(rec.sample_rate, rec.rate_gain, rec.peak, ROUNDOFF[real])
     err = np.abs(u_c - u_py)
     assert float(err.max()) <= tol, (float(err.max()), tol, int(np.argmax(err.max(axis=1))))
 
@@ -276,3 +294,61 @@ def test_c_loop_stops_on_each_condition(recorded):
     assert out[-1, 0] == STOP_BAD_READING
     out = _run(rec.exe["float"], lines[:10] + ["skip"] + lines[11:12])
     assert out[-1, 0] == STOP_SEQUENCE
+
+
+@pytest.mark.skipif(GCC is None, reason="gcc is not installed: the reference C loop cannot be compiled")
+@pytest.mark.parametrize(("name", "delay", "rho_in"), [
+    ("cart-double", 1, 1e-9),  # a cart (position not wrapped, rail window), a computation delay; engages at the end
+    ("arm-2dof", 0, 1e12),  # two inputs; the level is met at once, so balance engages at the first sample
+    ("pendubot", 0, 1e-9),
+])
+def test_c_loop_matches_the_engine_on_other_rigs(tmp_path, name, delay, rho_in):
+    """The other demo families, with a short made-up table near upright and made-up readings, replayed open loop
+    through the engine's controller (its commands do not feed back into these readings)."""
+    text = (SCENARIOS / f"{name}.toml").read_text()
+    if delay:
+        text = text.replace("[balance]\n", f"[balance]\ndelay_samples = {delay}\n")
+    source = tmp_path / f"{name}.toml"
+    source.write_text(text)
+    rig = load_rig(source)
+    n, m, rows = rig.n_states, rig.n_inputs, 30
+    rate = rig.balance.sample_rate
+    rng = np.random.default_rng(3)
+    table = tvlqr_from_samples(rig, np.arange(rows) / rate, rng.normal(scale=0.05, size=(rows, n)),
+                               rng.normal(scale=0.1, size=(rows, m)))
+    table, study, rule, balance = _as_exported(rig, table, study_balance(rig), handover_rule(rig, rho_in))
+    assert study.design.delay_samples == delay
+    # Stop windows wide enough not to trip on these readings (the rail window is the rig's travel).
+    sup = Supervision(catch_level=rule.rho_in, catch_deadline=100.0,
+                      speed_limits=tuple((j, 1e3, "m/s" if j == "cart" else "rad/s") for j in joint_names(rig)),
+                      rail_limit=None if rig.cart is None else rig.cart.travel, derived_from=1, checked_on=1,
+                      false_trips=0, missed=0, missed_stopped=0)
+    write_balance_files(tmp_path, rig, study, balance_fields(rig, study))
+    assert write_swingup_files(tmp_path, rig, table, handover=rule, supervision=sup).c_header is not None
+    exe = _build(tmp_path, rig)
+    # Readings: the reference plus noise while the table runs, then small noise about upright.
+    p = len(study.kalman.measured)
+    y = np.vstack([table.x_ref[:, :p], np.zeros((30, p))]) + rng.normal(scale=0.01, size=(rows + 30, p))
+    ctrl = CatchController(rig, tracking_law(table), balance, rule, table.end_time, reference=table)
+    memory = ctrl.start(y[:1])
+    u_py, mode_py = [], []
+    for k in range(y.shape[0]):
+        request, memory = ctrl.step(k * (1.0 / rate), y[k:k + 1], memory)
+        u_py.append(np.clip(request[0], -balance.peak, balance.peak))
+        mode_py.append(int(memory[0, 1]))
+    u_py, mode_py = np.array(u_py), np.array(mode_py)
+    assert mode_py[0] == (BALANCING if rho_in > 1.0 else TRACKING) and mode_py[-1] == BALANCING
+    x_eq = study.design.x_eq[:p]
+    lines = [" ".join(repr(float(v)) for v in row + x_eq) for row in y]
+    n_q = n // 2
+    rate_gain = max(float(np.max(np.abs(table.K[:, :, n_q:]))),
+                    float(np.max(np.abs(study.design.K_discrete[:, n_q:n]))))
+    for real in ("double", "float"):
+        out = _run(exe[real], lines)
+        assert np.array_equal(out[:, 0].astype(int), mode_py)
+        assert float(np.max(np.abs(out[:, 1:-1] - u_py))) <= _tolerance(rate, rate_gain, balance.peak, ROUNDOFF[real])
+    if rig.cart is not None:  # the cart past its rail window stops the loop
+        beyond = y[-1].copy()
+        beyond[study.kalman.measured.index("x")] = rig.cart.travel + 0.01
+        out = _run(exe["float"], lines + [" ".join(repr(float(v)) for v in beyond + x_eq)])
+        assert out[-1, 0] == STOP_RAIL and np.all(out[:-1, 0] < 16)

@@ -127,6 +127,7 @@ class CatchController:
         est = balance.estimator
         self._seed_map = None if est is None else np.linalg.pinv(np.asarray(est.Cxi, dtype=float)).T
         self._Dyt = None if est is None else np.asarray(est.Dy, dtype=float).T
+        self._Cxit = None if est is None else np.asarray(est.Cxi, dtype=float).T
         self.handover_time = np.zeros(0)
         self.level_time = np.zeros(0)
         self.balancing_at_end = np.zeros(0, dtype=bool)
@@ -170,6 +171,13 @@ class CatchController:
         ids, mode, y_prev, rate, mem_b = self._split(memory)
         x_hat, rate = self._estimate(t, y, y_prev, rate)
         before = mode > 0.5
+        if self._Cxit is not None and before.any():
+            # While balancing, the rule reads the balance loop's own estimate (its Kalman filter), not the
+            # swing-up's filtered differences: those are noisy enough near upright to carry the level across the
+            # whole hysteresis band from one sample to the next, and the controllers would alternate.
+            x_hat = x_hat.copy()
+            x_hat[before] = (mem_b[before, :self.balance.n_xi] @ self._Cxit + y[before] @ self._Dyt
+                             + self.x_eq)
         met = self.rule.level(x_hat) <= self.rule.rho_in
         if met.any():
             rows = ids[met].astype(int)

@@ -18,7 +18,10 @@ combinator, :class:`CatchController`, which per rollout and per sample
    does not. Firmware that runs ``swingup.csv`` should estimate rates the same way (the export says so);
 2. updates the mode with the hand-over rule of :class:`upswing.synthesis.swingup.tracking.HandoverRule`: balance
    engages when x_hat' P x_hat <= rho_in and releases only above rho_out > rho_in (hysteresis); a tracking table
-   also engages balance for good once its last row is over (the ``swingup.csv`` contract);
+   also engages balance for good once its last row is over (the ``swingup.csv`` contract). While balancing, the
+   level is read from the balance loop's own estimate (its Kalman filter on encoders): the swing-up's filtered
+   differences are noisy enough near upright to cross the whole band between two samples, and the controllers
+   then alternated about 200 times in 0.9 s on the demo acrobot;
 3. applies the swing-up law or the balance loop. The balance loop is the one ``upswing balance`` exports (discrete
    LQR and, on encoders, its Kalman filter). Its estimator is seeded at the engaging sample so that its estimate
    equals the swing-up's x_hat (bumpless transfer: xi = pinv(Cxi) (x_hat - Dy y)), because a linear filter about

@@ -131,7 +131,8 @@ def handover_json(rule: HandoverRule) -> dict[str, Any]:
     """The hand-over rule as JSON fields (P as a list of rows)."""
     return {"P": rule.P, "x_eq": rule.x_eq, "rho_in": rule.rho_in, "rho_out": rule.rho_out,
             "rule": "balance engages when (x - x_eq)' P (x - x_eq) <= rho_in (angle errors wrapped), releases above "
-                    "rho_out, and engages after the table's last row in any case"}
+                    "rho_out (while balancing, x is the balance loop's own estimate), and engages after the table's "
+                    "last row in any case"}
 
 
 def supervision_json(sup: Supervision) -> dict[str, Any]:

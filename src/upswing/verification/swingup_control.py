@@ -18,7 +18,10 @@ combinator, :class:`CatchController`, which per rollout and per sample
    does not. Firmware that runs ``swingup.csv`` should estimate rates the same way (the export says so);
 2. updates the mode with the hand-over rule of :class:`upswing.synthesis.swingup.tracking.HandoverRule`: balance
    engages when x_hat' P x_hat <= rho_in and releases only above rho_out > rho_in (hysteresis); a tracking table
-   also engages balance for good once its last row is over (the ``swingup.csv`` contract);
+   also engages balance for good once its last row is over (the ``swingup.csv`` contract). While balancing, the
+   level is read from the balance loop's own estimate (its Kalman filter on encoders): the swing-up's filtered
+   differences are noisy enough near upright to cross the whole band between two samples, and the controllers
+   then alternated about 200 times in 0.9 s on the demo acrobot;
 3. applies the swing-up law or the balance loop. The balance loop is the one ``upswing balance`` exports (discrete
    LQR and, on encoders, its Kalman filter). Its estimator is seeded at the engaging sample so that its estimate
    equals the swing-up's x_hat (bumpless transfer: xi = pinv(Cxi) (x_hat - Dy y)), because a linear filter about
@@ -127,6 +130,7 @@ class CatchController:
         est = balance.estimator
         self._seed_map = None if est is None else np.linalg.pinv(np.asarray(est.Cxi, dtype=float)).T
         self._Dyt = None if est is None else np.asarray(est.Dy, dtype=float).T
+        self._Cxit = None if est is None else np.asarray(est.Cxi, dtype=float).T
         self.handover_time = np.zeros(0)
         self.level_time = np.zeros(0)
         self.balancing_at_end = np.zeros(0, dtype=bool)
@@ -170,6 +174,13 @@ class CatchController:
         ids, mode, y_prev, rate, mem_b = self._split(memory)
         x_hat, rate = self._estimate(t, y, y_prev, rate)
         before = mode > 0.5
+        if self._Cxit is not None and before.any():
+            # While balancing, the rule reads the balance loop's own estimate (its Kalman filter), not the
+            # swing-up's filtered differences: those are noisy enough near upright to carry the level across the
+            # whole hysteresis band from one sample to the next, and the controllers would alternate.
+            x_hat = x_hat.copy()
+            x_hat[before] = (mem_b[before, :self.balance.n_xi] @ self._Cxit + y[before] @ self._Dyt
+                             + self.x_eq)
         met = self.rule.level(x_hat) <= self.rule.rho_in
         if met.any():
             rows = ids[met].astype(int)

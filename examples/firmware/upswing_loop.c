@@ -17,10 +17,10 @@
  *      differenced readings (its state carries over unchanged, as in the verified controller).
  *   3. Hand-over: level = (x_hat - x_eq)' P (x_hat - x_eq), angle errors wrapped. Balance engages when
  *      level <= UPSWING_HANDOVER_RHO_IN, releases only above UPSWING_HANDOVER_RHO_OUT (hysteresis: a level
- *      between the two keeps the mode), and engages for good after the table's last row. The band does not
- *      absorb all the noise of a level computed from encoder readings: in upswing's nominal run of the demo
- *      acrobot the verified controller changes mode 159 times between the first engagement and the table's end.
- *      This code reproduces that behaviour, because it is the behaviour that was verified.
+ *      between the two keeps the mode), and engages for good after the table's last row. While balancing, x_hat
+ *      is the balance Kalman filter's estimate, not the filtered differences of step 2: near upright those are
+ *      noisy enough to carry the level across the whole band from one sample to the next, and the two
+ *      controllers would alternate (upswing measured ~200 changes in 0.9 s on its demo acrobot).
  *   4. Stop checks on the estimate (UPSWING_STOP_*): catch deadline, speed windows, rail window, stale reading.
  *   5. Command: tracking u = u_ff[k] - K[k] (x_hat - x_ref[k]), angle errors wrapped; or the balance loop
  *      u = u_eq - K_discrete [x_hat_b, pending] with the Kalman filter's x_hat_b. Saturated at the peaks.
@@ -299,8 +299,8 @@ static upswing_real handover_level(const upswing_real *x_hat)
     return v;
 }
 
-/* Stop conditions of swingup_table.h on the estimate (0 when none applies). Speeds use the estimated rates: the
- * drive's own safety function should use its own speed measurement. */
+/* Stop conditions of swingup_table.h (0 when none applies). Speeds use the estimated rates (the drive's own safety
+ * function should use its own speed measurement); the rail window uses the cart's reading. */
 static int stop_reason(const upswing_loop_state *s, long t_index)
 {
     (void)s;
@@ -326,7 +326,7 @@ static int stop_reason(const upswing_loop_state *s, long t_index)
     }
 #endif
 #ifdef UPSWING_STOP_RAIL_M
-    if (absf(s->x_hat[UPSWING_BALANCE_STATE_X]) > UPSWING_STOP_RAIL_M) {
+    if (absf(s->y_hold[UPSWING_BALANCE_MEASURED_X]) > UPSWING_STOP_RAIL_M) { /* the reading, not an estimate */
         return UPSWING_LOOP_STOP_RAIL;
     }
 #endif
@@ -448,7 +448,21 @@ upswing_loop_status upswing_loop_step(upswing_loop_state *s, long t_index, const
         s->y_prev[i] = y[i];
     }
 
-    /* 3. hand-over rule */
+    /* 3. hand-over rule; while balancing it reads the balance filter's estimate x_hat_b = Cxi xi + Dy y (plus
+     * x_eq), from the filter state of this sample, before the filter's update in balance_step */
+    if (s->balancing) {
+        int j;
+        for (i = 0; i < N; ++i) {
+            upswing_real acc = upswing_balance_x_eq[i];
+            for (j = 0; j < NXI; ++j) {
+                acc += upswing_balance_kf_Cxi[i][j] * s->xi[j];
+            }
+            for (j = 0; j < P; ++j) {
+                acc += upswing_balance_kf_Dy[i][j] * y[j];
+            }
+            s->x_hat[i] = acc;
+        }
+    }
     s->level = handover_level(s->x_hat);
     if (s->level <= UPSWING_HANDOVER_RHO_IN) {
         s->caught = 1;

@@ -170,11 +170,14 @@ def _build(folder: Path, rig) -> dict[str, Path]:
     """Compile the driver and the reference loop against the headers in ``folder``, in float and in double."""
     driver = folder / "driver.c"
     driver.write_text(DRIVER)
-    cutoff = f"-DUPSWING_LOOP_RATE_CUTOFF_HZ={rig.swingup.tracking_rate_cutoff!r}f"
+    # no -DUPSWING_LOOP_RATE_CUTOFF_HZ: the cut-off must come from the header's UPSWING_SWINGUP_RATE_CUTOFF_HZ
+    header = (folder / "swingup_table.h").read_text()
+    assert f"#define UPSWING_SWINGUP_RATE_CUTOFF_HZ {float(rig.swingup.tracking_rate_cutoff)!r}" in header.replace(
+        "f\n", "\n")
     exe = {}
     for real in ("float", "double"):
         exe[real] = folder / f"driver_{real}"
-        build = subprocess.run([GCC, *CFLAGS, cutoff, f"-DUPSWING_LOOP_REAL={real}", "-I", str(folder), "-I",
+        build = subprocess.run([GCC, *CFLAGS, f"-DUPSWING_LOOP_REAL={real}", "-I", str(folder), "-I",
                                 str(EXAMPLE), str(driver), str(EXAMPLE / "upswing_loop.c"), "-o", str(exe[real]),
                                 "-lm"], capture_output=True, text=True)
         assert build.returncode == 0, build.stderr  # warning-free under -Wall -Wextra -Werror -pedantic

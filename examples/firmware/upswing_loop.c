@@ -37,12 +37,16 @@
 #include <math.h>
 #include <stddef.h>
 
-/* The rate filter's cut-off is not a macro of the exported headers: the swing-up header states it in its "rates:"
- * comment line ([swingup].tracking_rate_cutoff of the rig file, and "rate_estimate" in swingup.json). Define it
- * when compiling, e.g. -DUPSWING_LOOP_RATE_CUTOFF_HZ=20.0f; a different value is a different controller from the
- * one verified. */
+/* The rate filter's cut-off: the swing-up header's UPSWING_SWINGUP_RATE_CUTOFF_HZ ([swingup].tracking_rate_cutoff
+ * of the rig file, "rate_estimate" in swingup.json). Defining UPSWING_LOOP_RATE_CUTOFF_HZ overrides it, but a
+ * different value is a different controller from the one verified. Headers exported before the macro existed
+ * carry the value only in their "rates:" comment line: then the define is required. */
 #ifndef UPSWING_LOOP_RATE_CUTOFF_HZ
+#ifdef UPSWING_SWINGUP_RATE_CUTOFF_HZ
+#define UPSWING_LOOP_RATE_CUTOFF_HZ UPSWING_SWINGUP_RATE_CUTOFF_HZ
+#else
 #error "define UPSWING_LOOP_RATE_CUTOFF_HZ [Hz]: the rate cut-off in the 'rates:' line of swingup_table.h"
+#endif
 #endif
 
 #ifndef UPSWING_HANDOVER_RHO_IN

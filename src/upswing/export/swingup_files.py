@@ -257,7 +257,8 @@ def _c_catch_parts(handover: HandoverRule | None, supervision: Supervision | Non
 def c_header_text(rig: Rig, table: TrackingTable, handover: HandoverRule | None = None,
                   supervision: Supervision | None = None) -> str:
     """The C99 header: macros for the sizes and rate, ``extern const float`` declarations, and the definitions
-    behind ``#ifdef UPSWING_SWINGUP_TABLE_DEFINE``; with a verified swing-up also the hand-over rule
+    behind ``#ifdef UPSWING_SWINGUP_TABLE_DEFINE`` (``UPSWING_SWINGUP_RATE_CUTOFF_HZ``: the cut-off of the
+    reference-aided rate estimate the verification assumed); with a verified swing-up also the hand-over rule
     (``upswing_handover_P``, ``upswing_handover_x_eq``, ``UPSWING_HANDOVER_RHO_IN``/``_OUT``) and the stop
     conditions (``UPSWING_STOP_CATCH_DEADLINE_S``, ``UPSWING_STOP_SPEED_<JOINT>`` [rad/s or m/s],
     ``UPSWING_STOP_RAIL_M``, ``UPSWING_STOP_STALE_READING_SAMPLES`` [control samples without a fresh encoder
@@ -281,7 +282,8 @@ def c_header_text(rig: Rig, table: TrackingTable, handover: HandoverRule | None 
 #define UPSWING_SWINGUP_INPUTS {m}
 #define UPSWING_SWINGUP_SAMPLE_RATE_HZ {_c_float(table.sample_rate)}
 #define UPSWING_SWINGUP_T0_S {_c_float(table.t[0])}
-#define UPSWING_SWINGUP_BYTES {c_table_bytes(table)}{catch_macros}
+#define UPSWING_SWINGUP_BYTES {c_table_bytes(table)}
+#define UPSWING_SWINGUP_RATE_CUTOFF_HZ {_c_float(rig.swingup.tracking_rate_cutoff)}{catch_macros}
 
 extern const float upswing_swingup_peak[UPSWING_SWINGUP_INPUTS];
 extern const float upswing_swingup_x_ref[UPSWING_SWINGUP_ROWS][UPSWING_SWINGUP_STATES];

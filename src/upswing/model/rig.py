@@ -175,7 +175,7 @@ class SwingUpSettings:
     rail_damping: float = 2.8
     energy_margin: float = 0.01
     handover_level: float | None = None
-    release_factor: float = 1.5
+    release_factor: float = schema.SWINGUP.key("release_factor").default
     plan_effort_share: float = schema.SWINGUP.key("plan_effort_share").default
     plan_speed_share: float = schema.SWINGUP.key("plan_speed_share").default
     tracking_r_factor: float = schema.SWINGUP.key("tracking_r_factor").default

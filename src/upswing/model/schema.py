@@ -266,7 +266,10 @@ SWINGUP = Table(
             "(x - x_eq)' P (x - x_eq) <= rho_in (P: the discrete balance design's Riccati solution); default: "
             "the region-of-attraction estimate.", default=None, low=0.0, low_open=True),
         Key("release_factor", "float", "-", "Hysteresis: give control back to the swing-up law only above "
-            "rho_out = release_factor * rho_in.", default=1.5, low=1.0, low_open=True, high=100.0),
+            "rho_out = release_factor * rho_in. At 1.5, 15 % of the demo acrobot's tracked runs engaged and "
+            "released balance repeatedly (up to 43 times) while the balance loop's transient and saturation raised "
+            "the level after the catch; at 3, every run switched exactly once, with the same catch rate.",
+            default=3.0, low=1.0, low_open=True, high=100.0),
         Key("plan_effort_share", "float", "-", "Share of each actuator's peak (and motor line) the optimized "
             "trajectory may use; the rest is left to the tracking feedback. Motor sizing always plans to the full "
             "limit.", default=1.0, low=0.0, low_open=True, high=1.0, plausible=(0.5, 1.0)),

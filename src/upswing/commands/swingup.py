@@ -19,7 +19,13 @@ from upswing.commands.common import Outcome, add_rig_argument, load, rig_header,
 from upswing.errors import RequestError
 from upswing.export.folders import stage_output
 from upswing.export.jsonable import dumps
-from upswing.export.swingup_files import dropout_study_json, handover_json, supervision_json, write_swingup_files
+from upswing.export.swingup_files import (
+    dropout_study_json,
+    handover_json,
+    miss_correlations_json,
+    supervision_json,
+    write_swingup_files,
+)
 from upswing.model.rig import Rig
 from upswing.synthesis.swingup import SizingResult, TradeoffCurve, plan_swingup, size_motor, tradeoff_curve
 from upswing.synthesis.swingup.energy import unsuited_reason
@@ -139,9 +145,7 @@ def swingup_fields(v: SwingUpVerification) -> dict[str, Any]:
         "rollouts": v.rollouts,
         "seed": v.seed,
         "outcomes": v.outcomes,
-        "miss_correlations": [{"parameter": c.parameter, "r": c.r, "mean_deviation_missed": c.mean_deviation_failed,
-                               "mean_deviation_caught": c.mean_deviation_held, "notable": bool(c.notable)}
-                              for c in v.correlations],
+        "miss_correlations": miss_correlations_json(v.correlations),
         "handover_time": v.nominal.handover_time,
         "nominal": {"status": v.nominal.status, "caught": v.nominal.caught,
                     "handover_time": v.nominal.handover_time},

@@ -47,7 +47,7 @@ from upswing import __version__
 from upswing.design.decision import DESIGN_RULE
 from upswing.design.pipeline import DesignRun
 from upswing.export.header import rig_header, safety_block
-from upswing.export.swingup_files import supervision_json
+from upswing.export.swingup_files import miss_correlations_json, supervision_json
 from upswing.report.html import STATUS_WORDS
 from upswing.report.verdict import Margin
 from upswing.verification.budgets import Budget
@@ -99,9 +99,7 @@ def swingup_json(run: DesignRun) -> dict[str, Any] | None:
                    handover_level={"rho_in": check.rho_in, "rho_out": check.rho_out, "source": check.rho_source},
                    verdict=check.verdict, reasons=list(check.reasons), horizon_s=check.horizon_s,
                    supervision=None if check.supervision is None else supervision_json(check.supervision),
-                   miss_correlations=[{"parameter": c.parameter, "r": c.r, "notable": bool(c.notable),
-                                       "mean_deviation_missed": c.mean_deviation_failed,
-                                       "mean_deviation_caught": c.mean_deviation_held} for c in check.correlations])
+                   miss_correlations=miss_correlations_json(check.correlations))
     return out
 
 

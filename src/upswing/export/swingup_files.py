@@ -179,6 +179,12 @@ def dropout_study_json(study: SwingUpDropoutStudy) -> dict[str, Any]:
     }
 
 
+def miss_correlations_json(correlations) -> list[dict[str, Any]]:
+    """The parameters the missed catches follow (``SwingUpVerification.correlations``) as JSON fields."""
+    return [{"parameter": c.parameter, "r": c.r, "mean_deviation_missed": c.mean_deviation_failed,
+             "mean_deviation_caught": c.mean_deviation_held, "notable": bool(c.notable)} for c in correlations]
+
+
 def json_object(rig: Rig, table: TrackingTable, handover: HandoverRule | None = None,
                 supervision: Supervision | None = None) -> dict[str, Any]:
     """The table as one JSON-ready object: the common header, the law, and t, x_ref, u_ff, K as lists; with a

@@ -9,7 +9,7 @@ from upswing.design.swingup_stage import SwingUpOutcome
 from upswing.model.rig import Rig
 from upswing.report import figures_rig, figures_time
 from upswing.report.html import Image, Notes, Paragraph, Section, Table, figure_image
-from upswing.report.sections_verification import budgets_blocks
+from upswing.report.sections_verification import budgets_blocks, correlation_table
 
 
 def plan_table(rig: Rig, outcome: SwingUpOutcome) -> Table:
@@ -87,7 +87,7 @@ def verified_blocks(rig: Rig, check) -> list:
               "How the tracked swing-ups ended ('caught and held': the balance loop engaged and held the links in "
               "the settling box for the final second)."),
     ]
-    sup = getattr(check, "supervision", None)
+    sup = check.supervision
     if sup is not None and np.isfinite(sup.catch_deadline):
         rows = [("balance cost-to-go must reach", f"{sup.catch_level:.4g}", "-"),
                 ("... by, after the start", f"{sup.catch_deadline:.3f}", "s")]
@@ -100,17 +100,14 @@ def verified_blocks(rig: Rig, check) -> list:
             f"on {sup.checked_on} others: {sup.false_trips} nuisance stops, {sup.missed_stopped} of {sup.missed} "
             "missed catches stopped. Run them as a safety function (ISO 13849-1) with stop category 0 or 1 "
             "(IEC 60204-1); swingup.json and the C header carry them."))
-    study = getattr(check, "dropout_study", None)
+    study = check.dropout_study
     if study is not None:
         blocks.append(dropout_table(study))
-    notable = [c for c in getattr(check, "correlations", ()) if c.notable]
-    if notable:
-        blocks.append(Table(
-            ("parameter", "correlation r", "mean deviation, missed", "mean deviation, caught"),
-            tuple((c.parameter, f"{c.r:+.2f}", f"{100 * c.mean_deviation_failed:+.1f} %",
-                   f"{100 * c.mean_deviation_held:+.1f} %") for c in notable),
-            "Parameters the missed catches follow (point-biserial correlation; |r| above 2/sqrt(N) is unlikely by "
-            "chance): measure these better first."))
+    table = correlation_table(check.correlations, ("missed", "caught"),
+                              "Parameters the missed catches follow (point-biserial correlation; |r| above 2/sqrt(N) "
+                              "is unlikely by chance): measure these better first.")
+    if table is not None:
+        blocks.append(table)
     caught = check.handover_times[check.caught] if check.caught is not None else check.handover_times
     if np.isfinite(caught).any():
         blocks.append(figure_image(

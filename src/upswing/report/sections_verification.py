@@ -14,10 +14,22 @@ from upswing.report.figures_time import Curve, ellipse_curve
 from upswing.report.html import Block, Notes, Paragraph, Section, Table, figure_image
 from upswing.report.verdict import Margin
 from upswing.verification.budgets import Budget
+from upswing.verification.montecarlo import Correlation
 from upswing.verification.roa import RegionOfAttraction, Slice
 from upswing.verification.verdict import Verification
 
 ANGLES = ("theta1", "theta2")
+
+
+def correlation_table(correlations: Sequence[Correlation], outcomes: tuple[str, str], caption: str) -> Table | None:
+    """The notable entries of ``correlations`` (:class:`upswing.verification.montecarlo.Correlation`) as a table, or
+    None when there are none; ``outcomes`` names the two groups, e.g. ("failed", "held")."""
+    notable = [c for c in correlations if c.notable]
+    if not notable:
+        return None
+    return Table(("parameter", "correlation r", f"mean deviation, {outcomes[0]}", f"mean deviation, {outcomes[1]}"),
+                 tuple((c.parameter, f"{c.r:+.2f}", f"{100 * c.mean_deviation_failed:+.1f} %",
+                        f"{100 * c.mean_deviation_held:+.1f} %") for c in notable), caption)
 
 
 def _axis(state: str, rig: Rig) -> tuple[str, str, float]:
@@ -53,13 +65,11 @@ def monte_carlo_blocks(rig: Rig, v: Verification, required: float) -> list[Block
               tuple((k, str(n), f"{100 * n / mc.rollouts:.1f} %") for k, n in mc.outcomes.items()),
               "How the Monte Carlo rollouts ended ('held': inside the settling box for the final second)."),
     ]
-    notable = [c for c in mc.correlations if c.notable]
-    if notable:
-        blocks.append(Table(
-            ("parameter", "correlation r", "mean deviation, failed", "mean deviation, held"),
-            tuple((c.parameter, f"{c.r:+.2f}", f"{100 * c.mean_deviation_failed:+.1f} %",
-                   f"{100 * c.mean_deviation_held:+.1f} %") for c in notable),
-            "Parameters the failures follow (point-biserial correlation; |r| above 2/sqrt(N) is unlikely by chance)."))
+    table = correlation_table(mc.correlations, ("failed", "held"),
+                              "Parameters the failures follow (point-biserial correlation; |r| above 2/sqrt(N) is "
+                              "unlikely by chance).")
+    if table is not None:
+        blocks.append(table)
     results = mc.results.subset(mc.results.held) if mc.results.held.any() else mc.results
     for j, a in enumerate(rig.actuators):
         unit = "N" if a.joint == "cart" else "N m"

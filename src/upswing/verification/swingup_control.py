@@ -181,11 +181,12 @@ class CatchController:
             x_hat = x_hat.copy()
             x_hat[before] = (mem_b[before, :self.balance.n_xi] @ self._Cxit + y[before] @ self._Dyt
                              + self.x_eq)
-        met = self.rule.level(x_hat) <= self.rule.rho_in
+        level = self.rule.level(x_hat)
+        met = level <= self.rule.rho_in
         if met.any():
             rows = ids[met].astype(int)
             self.level_time[rows[np.isnan(self.level_time[rows])]] = t
-        balancing = self.rule.update(x_hat, before)
+        balancing = self.rule.decide(level, before)
         if self.table_end is not None and t >= self.table_end - 1e-9:
             balancing[:] = True
         engage = balancing & ~before

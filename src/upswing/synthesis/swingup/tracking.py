@@ -329,9 +329,12 @@ class HandoverRule:
         ndarray of bool, shape (N,)
             True where level <= rho_in, or where the rollout was balancing and level <= rho_out.
         """
-        v = self.level(X)
+        return self.decide(self.level(X), balancing)
+
+    def decide(self, level: np.ndarray, balancing: np.ndarray) -> np.ndarray:
+        """:meth:`update` for levels already computed (shape (N,)): engage at <= rho_in, keep while <= rho_out."""
         balancing = np.asarray(balancing, dtype=bool)
-        return np.where(balancing, v <= self.rho_out, v <= self.rho_in)
+        return np.where(balancing, level <= self.rho_out, level <= self.rho_in)
 
 
 def handover_rule(rig: Rig, rho_in: float | None = None, *, release_factor: float | None = None,

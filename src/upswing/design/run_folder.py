@@ -109,8 +109,8 @@ def _swingup_table_files(folder: Path, rig, table, check=None) -> tuple[list[str
     the hand-over rule and the stop conditions it verified go in too."""
     from upswing.export.swingup_files import write_swingup_files
 
-    files = write_swingup_files(folder, rig, table, handover=getattr(check, "rule", None),
-                                supervision=getattr(check, "supervision", None))
+    files = write_swingup_files(folder, rig, table, handover=None if check is None else check.rule,
+                                supervision=None if check is None else check.supervision)
     return [Path(p).name for p in (files.csv, files.json, files.c_header) if p is not None], files.note
 
 
